@@ -1,0 +1,797 @@
+// pitch_tracker.cpp: the incremental F0 estimator and tracker. See pitch_tracker.h for the contract and
+// docs/estimator.md for the method with its sources.
+//
+// Thread contract: one thread at a time (the analysis thread). Everything is allocated in the constructor;
+// process()/flush() do no allocation of their own (libsoxr keeps its own buffers, made on creation).
+#include "pitchwire/dsp/pitch_tracker.h"
+
+#include <fftw3.h>
+#include <soxr.h>
+
+#include <algorithm>
+#include <array>
+#include <cmath>
+#include <complex>
+#include <mutex>
+#include <numeric>
+#include <stdexcept>
+#include <vector>
+
+namespace pitchwire::dsp {
+namespace {
+
+constexpr double kPi = 3.14159265358979323846;
+constexpr double kAnalysisRateHz = 16000.0;  // inputs above this are resampled down to it
+constexpr double kBinCents = 20.0;           // HMM pitch bin width
+constexpr double kMaxSlopeStPerS = 200.0;    // fastest F0 change the tracker follows (semitones per second)
+constexpr double kVoicingSwitch = 0.02;      // per-frame probability of leaving the voiced / unvoiced state
+constexpr double kLowpassHz = 1800.0;        // analysis band upper edge (YIN paper: low-passing helps)
+constexpr double kHighpassHz = 40.0;         // DC and rumble
+constexpr double kHumMaxHz = 1000.0;         // highest mains harmonic cancelled
+constexpr std::size_t kMaxCandidates = 8;
+constexpr int kThresholds = 100;             // thresholds 0.01 .. 1.00 for the candidate distribution
+constexpr double kLevelGateBelowPeakDb = 22.0;
+constexpr double kPeakDecayDbPerS = 3.0;
+
+// FFTW's planner is not thread-safe; plans are made in constructors only, under this mutex.
+std::mutex& fftw_planner_mutex() {
+  static std::mutex m;
+  return m;
+}
+
+// Second-order section, transposed direct form II (RBJ cookbook coefficients, common practice).
+struct Biquad {
+  double b0 = 1, b1 = 0, b2 = 0, a1 = 0, a2 = 0;
+  double z1 = 0, z2 = 0;
+
+  static Biquad lowpass(double fc, double fs, double q) { return make(fc, fs, q, false); }
+  static Biquad highpass(double fc, double fs, double q) { return make(fc, fs, q, true); }
+
+  double process(double x) {
+    const double y = b0 * x + z1;
+    z1 = b1 * x - a1 * y + z2;
+    z2 = b2 * x - a2 * y;
+    return y;
+  }
+  void reset() { z1 = z2 = 0; }
+
+ private:
+  static Biquad make(double fc, double fs, double q, bool high) {
+    const double w0 = 2 * kPi * fc / fs;
+    const double alpha = std::sin(w0) / (2 * q);
+    const double c = std::cos(w0);
+    const double a0 = 1 + alpha;
+    Biquad s;
+    if (high) {
+      s.b0 = (1 + c) / 2 / a0;
+      s.b1 = -(1 + c) / a0;
+      s.b2 = (1 + c) / 2 / a0;
+    } else {
+      s.b0 = (1 - c) / 2 / a0;
+      s.b1 = (1 - c) / a0;
+      s.b2 = (1 - c) / 2 / a0;
+    }
+    s.a1 = -2 * c / a0;
+    s.a2 = (1 - alpha) / a0;
+    return s;
+  }
+};
+
+// Cancels steady mains hum: for the 50 Hz and the 60 Hz series, one complex amplitude per harmonic is
+// estimated by LMS against a reference oscillator (an adaptive notch bank). The step size starts as a
+// running average and settles to a narrow bandwidth (~0.5 Hz), so only components that stay phase-locked
+// to a mains harmonic for a good part of a second are removed. Harmonics above the fundamental are
+// subtracted only while the series' fundamental itself is present: a voice whose harmonics happen to sit
+// on multiples of 50 Hz (a steady 100 Hz vowel) has no energy at 50 Hz and is left alone.
+class HumCanceller {
+ public:
+  HumCanceller() = default;
+  HumCanceller(double fs, double max_hz) {
+    for (double mains : {50.0, 60.0}) {
+      Series s;
+      for (int k = 1; k * mains <= std::min(max_hz, 0.45 * fs); ++k) {
+        const double w = 2 * kPi * k * mains / fs;
+        s.rot.emplace_back(std::cos(w), std::sin(w));
+      }
+      s.osc.assign(s.rot.size(), {1.0, 0.0});
+      s.amp.assign(s.rot.size(), {0.0, 0.0});
+      series_.push_back(std::move(s));
+    }
+    mu_min_ = 2.0 / (0.35 * fs);  // time constant ~0.35 s
+    n0_ = 0.02 * fs;
+  }
+
+  double process(double x) {
+    double est_all = 0, est_active = 0;
+    for (auto& s : series_) {
+      double est = 0, est_fund = 0;
+      for (std::size_t h = 0; h < s.osc.size(); ++h) {
+        const double v = s.amp[h].real() * s.osc[h].real() - s.amp[h].imag() * s.osc[h].imag();
+        est += v;
+        if (h == 0) est_fund = v;
+      }
+      est_all += est;
+      est_active += s.active ? est : est_fund;
+    }
+    const double e = x - est_all;
+    const double mu = std::max(mu_min_, 2.0 / (static_cast<double>(n_) + n0_));
+    ++n_;
+    for (auto& s : series_) {
+      for (std::size_t h = 0; h < s.osc.size(); ++h) {
+        s.amp[h] += mu * e * std::conj(s.osc[h]);
+        s.osc[h] *= s.rot[h];
+      }
+    }
+    if ((n_ & 255) == 0) renormalize();
+    return x - est_active;
+  }
+
+  void reset() {
+    for (auto& s : series_) {
+      std::fill(s.osc.begin(), s.osc.end(), std::complex<double>(1.0, 0.0));
+      std::fill(s.amp.begin(), s.amp.end(), std::complex<double>(0.0, 0.0));
+      s.active = false;
+    }
+    n_ = 0;
+  }
+
+ private:
+  struct Series {
+    std::vector<std::complex<double>> rot, osc, amp;
+    bool active = false;
+  };
+
+  void renormalize() {
+    for (auto& s : series_) {
+      double max_upper = 0;
+      for (std::size_t h = 0; h < s.osc.size(); ++h) {
+        s.osc[h] /= std::abs(s.osc[h]);
+        if (h > 0) max_upper = std::max(max_upper, std::abs(s.amp[h]));
+      }
+      const double fund = s.amp.empty() ? 0.0 : std::abs(s.amp[0]);
+      // Hysteresis: on at a quarter of the strongest harmonic, off at an eighth.
+      s.active = s.active ? fund > 0.125 * max_upper && fund > 1e-5 : fund > 0.25 * max_upper && fund > 2e-5;
+    }
+  }
+
+  std::vector<Series> series_;
+  double mu_min_ = 0, n0_ = 1;
+  std::int64_t n_ = 0;
+};
+
+struct Candidate {
+  float f0_hz = 0;
+  float prob = 0;
+  float bin = 0;  // fractional HMM bin
+};
+
+// Everything remembered about a frame until its settled value is out.
+struct FrameRecord {
+  std::int64_t index = -1;
+  double time_s = 0;
+  std::array<Candidate, kMaxCandidates> cand{};
+  std::size_t n_cand = 0;
+  std::optional<float> live_f0;
+  float voicing = 0, confidence = 0, level_dbfs = -200;
+};
+
+double beta_pdf_unnormalized(double x, double a, double b) { return std::pow(x, a - 1) * std::pow(1 - x, b - 1); }
+
+}  // namespace
+
+std::string TrackerConfig::validate() const {
+  auto bad = [](const char* field, double v, const char* allowed) {
+    return std::string(field) + " = " + std::to_string(v) + " is out of range; allowed: " + allowed;
+  };
+  if (!(sample_rate_hz >= 8000 && sample_rate_hz <= 96000)) return bad("sample_rate_hz", sample_rate_hz, "8000 to 96000");
+  if (!(hop_ms >= 2.5 && hop_ms <= 10)) return bad("hop_ms", hop_ms, "2.5 to 10");
+  if (!(f0_min_hz >= 30 && f0_min_hz <= 500)) return bad("f0_min_hz", f0_min_hz, "30 to 500");
+  if (!(f0_max_hz > f0_min_hz * 1.5 && f0_max_hz <= 2000))
+    return bad("f0_max_hz", f0_max_hz, "more than 1.5 x f0_min_hz, at most 2000");
+  if (!(f0_max_hz < 0.4 * std::min(sample_rate_hz, kAnalysisRateHz)))
+    return bad("f0_max_hz", f0_max_hz, "below 0.4 x the sample rate");
+  if (!(settle_ms >= 0 && settle_ms <= 500)) return bad("settle_ms", settle_ms, "0 to 500");
+  if (!(level_floor_dbfs >= -140 && level_floor_dbfs <= -10)) return bad("level_floor_dbfs", level_floor_dbfs, "-140 to -10");
+  return {};
+}
+
+struct PitchTracker::Impl {
+  TrackerConfig cfg;
+  double fs = 0;        // input rate
+  double fa = 0;        // analysis rate
+  double hop_a = 0;     // hop in analysis samples (may be fractional)
+  int tau_min = 0, tau_max = 0, span = 0, half = 0;
+  int nfft = 0;
+
+  // Resampler (only when fs > analysis rate).
+  soxr_t soxr = nullptr;
+  std::vector<float> rs_out;
+
+  // Filters.
+  Biquad hp, lp1, lp2;
+  HumCanceller hum;
+
+  // Analysis buffer: buf[i] holds analysis sample buf_start + i.
+  std::vector<float> buf;
+  std::size_t buf_len = 0;
+  std::int64_t buf_start = 0;
+  std::int64_t analysis_count = 0;  // analysis samples produced so far (excluding the initial padding)
+
+  // FFT scratch.
+  double* fft_in = nullptr;
+  fftw_complex* spec = nullptr;
+  fftw_plan plan_fwd = nullptr, plan_inv = nullptr;
+  std::vector<double> frame, cum_sq, diff, cmnd;
+
+  // Threshold prior.
+  std::array<double, kThresholds> thr_weight{};
+
+  // Level bins: sum of squares over half hops of input.
+  std::vector<double> lvl_sum;  // ring of completed bins
+  std::int64_t lvl_bin = 0;
+  std::int64_t lvl_next_boundary = 0;
+  double lvl_acc = 0;
+  std::int64_t input_count = 0;
+  std::int64_t nonfinite = 0;
+
+  // HMM.
+  int n_bins = 0, jump = 0;
+  double bin0_cents = 0;  // cents re 1 Hz of bin 0's centre
+  std::vector<double> tri, alpha, alpha_new, delta, delta_new, obs;
+  std::vector<std::int16_t> backptr;  // ring [ring_len][n_bins + 1]
+  int settle = 0, ring_len = 0;
+  std::vector<FrameRecord> records;
+  std::int64_t next_frame = 0;      // next hop to analyse
+  std::int64_t next_settled = 0;    // next hop to settle
+  bool hmm_started = false;
+  double peak_db = -200;
+
+  explicit Impl(const TrackerConfig& c) : cfg(c) {
+    if (auto err = cfg.validate(); !err.empty()) throw std::invalid_argument(err);
+    fs = cfg.sample_rate_hz;
+    fa = fs > kAnalysisRateHz ? kAnalysisRateHz : fs;
+    hop_a = cfg.hop_ms * 1e-3 * fa;
+    tau_min = std::max(2, static_cast<int>(std::floor(fa / cfg.f0_max_hz)));
+    tau_max = static_cast<int>(std::ceil(fa / cfg.f0_min_hz));
+    span = 2 * tau_max + 2;        // window: two longest periods (one period left at the longest lag)
+    half = span / 2;
+    nfft = 1;
+    while (nfft < span + tau_max + 2) nfft <<= 1;  // no circular wrap for lags up to tau_max + 1
+
+    if (fa != fs) {
+      soxr_error_t err = nullptr;
+      const soxr_io_spec_t io = soxr_io_spec(SOXR_FLOAT32_I, SOXR_FLOAT32_I);
+      const soxr_quality_spec_t q = soxr_quality_spec(SOXR_HQ, 0);
+      soxr = soxr_create(fs, fa, 1, &err, &io, &q, nullptr);
+      if (err) throw std::runtime_error(std::string("resampler: ") + err);
+      rs_out.resize(4096);
+    }
+    hp = Biquad::highpass(kHighpassHz, fa, 0.70710678);
+    const double lp_hz = std::min(kLowpassHz, 0.45 * fa);
+    lp1 = Biquad::lowpass(lp_hz, fa, 0.54119610);  // 4th-order Butterworth as two sections
+    lp2 = Biquad::lowpass(lp_hz, fa, 1.30656296);
+    hum = HumCanceller(fa, kHumMaxHz);
+
+    buf.assign(static_cast<std::size_t>(span) + 8192, 0.0f);
+
+    {
+      std::lock_guard<std::mutex> lock(fftw_planner_mutex());
+      fft_in = fftw_alloc_real(static_cast<std::size_t>(nfft));
+      spec = fftw_alloc_complex(static_cast<std::size_t>(nfft / 2 + 1));
+      plan_fwd = fftw_plan_dft_r2c_1d(nfft, fft_in, spec, FFTW_ESTIMATE);
+      plan_inv = fftw_plan_dft_c2r_1d(nfft, spec, fft_in, FFTW_ESTIMATE);
+    }
+    frame.resize(static_cast<std::size_t>(span));
+    cum_sq.resize(static_cast<std::size_t>(span) + 1);
+    diff.resize(static_cast<std::size_t>(tau_max) + 2);
+    cmnd.resize(static_cast<std::size_t>(tau_max) + 2);
+
+    // Threshold prior: Beta distribution over the CMNDF threshold (probabilistic YIN, Mauch & Dixon 2014).
+    double total = 0;
+    for (int i = 0; i < kThresholds; ++i) {
+      const double s = (i + 0.5) / kThresholds;
+      thr_weight[static_cast<std::size_t>(i)] = beta_pdf_unnormalized(s, 2.0, 6.0);  // mean 0.25
+      total += thr_weight[static_cast<std::size_t>(i)];
+    }
+    for (auto& w : thr_weight) w /= total;
+
+    lvl_sum.assign(1024, 0.0);
+
+    bin0_cents = 1200.0 * std::log2(cfg.f0_min_hz);
+    n_bins = static_cast<int>(std::ceil(1200.0 * std::log2(cfg.f0_max_hz / cfg.f0_min_hz) / kBinCents)) + 1;
+    jump = std::max(1, static_cast<int>(std::ceil(kMaxSlopeStPerS * 100.0 * cfg.hop_ms * 1e-3 / kBinCents)));
+    tri.resize(static_cast<std::size_t>(2 * jump + 1));
+    double tsum = 0;
+    for (int d = -jump; d <= jump; ++d) tsum += tri[static_cast<std::size_t>(d + jump)] = jump + 1 - std::abs(d);
+    for (auto& t : tri) t /= tsum;
+    const auto states = static_cast<std::size_t>(n_bins) + 1;
+    alpha.assign(states, 0);
+    alpha_new.assign(states, 0);
+    delta.assign(states, 0);
+    delta_new.assign(states, 0);
+    obs.assign(states, 0);
+    settle = static_cast<int>(std::lround(cfg.settle_ms / cfg.hop_ms));
+    ring_len = settle + 2;
+    backptr.assign(static_cast<std::size_t>(ring_len) * states, 0);
+    records.assign(static_cast<std::size_t>(ring_len), FrameRecord{});
+    reset();
+  }
+
+  ~Impl() {
+    std::lock_guard<std::mutex> lock(fftw_planner_mutex());
+    fftw_destroy_plan(plan_fwd);
+    fftw_destroy_plan(plan_inv);
+    fftw_free(fft_in);
+    fftw_free(spec);
+    if (soxr) soxr_delete(soxr);
+  }
+
+  void reset() {
+    if (soxr) soxr_clear(soxr);
+    hp.reset();
+    lp1.reset();
+    lp2.reset();
+    hum.reset();
+    std::fill(buf.begin(), buf.end(), 0.0f);
+    buf_len = static_cast<std::size_t>(half) + 1;  // zeros before time 0
+    buf_start = -static_cast<std::int64_t>(buf_len);
+    analysis_count = 0;
+    std::fill(lvl_sum.begin(), lvl_sum.end(), 0.0);
+    lvl_bin = 0;
+    lvl_next_boundary = level_boundary(1);
+    lvl_acc = 0;
+    input_count = 0;
+    nonfinite = 0;
+    next_frame = 0;
+    next_settled = 0;
+    hmm_started = false;
+    peak_db = -200;
+  }
+
+  // Level bins are half hops: bin j covers input time [(j - 1) h/2, j h/2), so frame k (centred on k h)
+  // covers bins 2k and 2k + 1. This is the input sample index where bin j begins.
+  [[nodiscard]] std::int64_t level_boundary(std::int64_t j) const {
+    return static_cast<std::int64_t>(std::llround((static_cast<double>(j) - 1.0) * 0.5 * cfg.hop_ms * 1e-3 * fs));
+  }
+
+  // Adds one input sample's square to the bin it belongs to; lvl_bin is the bin being filled.
+  void level_push(double x2) {
+    while (input_count >= lvl_next_boundary) {
+      const auto slot = static_cast<std::size_t>(lvl_bin % static_cast<std::int64_t>(lvl_sum.size()));
+      lvl_sum[slot] = lvl_acc;
+      lvl_acc = 0;
+      ++lvl_bin;
+      lvl_next_boundary = level_boundary(lvl_bin + 1);
+    }
+    lvl_acc += x2;
+    ++input_count;
+  }
+
+  [[nodiscard]] float frame_level_dbfs(std::int64_t k) const {
+    // Frame k covers input time [(k - 0.5) hop, (k + 0.5) hop): bins 2k and 2k + 1.
+    double sum = 0;
+    for (std::int64_t j = 2 * k; j <= 2 * k + 1; ++j) {
+      if (j < 0 || j >= lvl_bin) continue;
+      sum += lvl_sum[static_cast<std::size_t>(j % static_cast<std::int64_t>(lvl_sum.size()))];
+    }
+    const double n = cfg.hop_ms * 1e-3 * fs;
+    const double ms = sum / n;
+    // AES17: a full-scale sine (mean square 0.5) reads 0 dBFS.
+    return ms > 1e-20 ? static_cast<float>(10.0 * std::log10(2.0 * ms)) : -200.0f;
+  }
+
+  void push_analysis(const float* x, std::size_t n, FrameSink& sink) {
+    while (n > 0) {
+      const std::size_t room = buf.size() - buf_len;
+      const std::size_t take = std::min(room, n);
+      for (std::size_t i = 0; i < take; ++i) {
+        double v = hp.process(x[i]);
+        if (cfg.hum_cancel) v = hum.process(v);
+        v = lp2.process(lp1.process(v));
+        buf[buf_len + i] = static_cast<float>(v);
+      }
+      buf_len += take;
+      analysis_count += static_cast<std::int64_t>(take);
+      x += take;
+      n -= take;
+      run_frames(sink);
+      compact();
+    }
+  }
+
+  void push_analysis_zeros(std::size_t n, FrameSink& sink) {
+    static constexpr std::array<float, 256> zeros{};
+    while (n > 0) {
+      const std::size_t take = std::min(n, zeros.size());
+      push_analysis(zeros.data(), take, sink);
+      n -= take;
+    }
+  }
+
+  // Keep only what the next frame still needs.
+  void compact() {
+    const std::int64_t need_from = frame_start(next_frame);
+    const std::int64_t drop = need_from - buf_start;
+    if (drop <= 0 || buf_len < buf.size() / 2) return;
+    const auto d = static_cast<std::size_t>(std::min<std::int64_t>(drop, static_cast<std::int64_t>(buf_len)));
+    std::copy(buf.begin() + static_cast<std::ptrdiff_t>(d), buf.begin() + static_cast<std::ptrdiff_t>(buf_len), buf.begin());
+    buf_len -= d;
+    buf_start += static_cast<std::int64_t>(d);
+  }
+
+  [[nodiscard]] std::int64_t frame_centre(std::int64_t k) const {
+    return static_cast<std::int64_t>(std::llround(static_cast<double>(k) * hop_a));
+  }
+  [[nodiscard]] std::int64_t frame_start(std::int64_t k) const { return frame_centre(k) - half; }
+
+  void run_frames(FrameSink& sink) {
+    while (frame_start(next_frame) + span <= buf_start + static_cast<std::int64_t>(buf_len)) {
+      analyse_frame(next_frame, sink);
+      ++next_frame;
+    }
+  }
+
+  [[nodiscard]] double bin_of(double f) const { return (1200.0 * std::log2(f) - bin0_cents) / kBinCents; }
+  [[nodiscard]] double f_of_bin(double b) const { return std::exp2((bin0_cents + b * kBinCents) / 1200.0); }
+
+  // YIN difference function through the FFT and its cumulative mean normalised form (de Cheveigne &
+  // Kawahara 2002, steps 2 and 3), then candidates from a distribution over thresholds (Mauch & Dixon 2014).
+  // The difference function is the windowed form d(tau) = sum_{j < S - tau} (x_j - x_{j+tau})^2 over one
+  // window of S samples centred on the frame time, divided by its S - tau terms: every lag then describes
+  // the same stretch of signal, so the frame time is the window centre whatever the period.
+  std::size_t yin_candidates(const float* x, std::array<Candidate, kMaxCandidates>& out, double& level_db, double& best_d) {
+    const auto S = static_cast<std::size_t>(span);
+    double mean = 0;
+    for (std::size_t i = 0; i < S; ++i) mean += x[i];
+    mean /= static_cast<double>(S);
+    cum_sq[0] = 0;
+    for (std::size_t i = 0; i < S; ++i) {
+      frame[i] = x[i] - mean;
+      cum_sq[i + 1] = cum_sq[i] + frame[i] * frame[i];
+    }
+    std::fill(fft_in, fft_in + nfft, 0.0);
+    std::copy(frame.begin(), frame.end(), fft_in);
+    fftw_execute(plan_fwd);
+    for (int i = 0; i <= nfft / 2; ++i) {
+      spec[i][0] = spec[i][0] * spec[i][0] + spec[i][1] * spec[i][1];
+      spec[i][1] = 0;
+    }
+    fftw_execute(plan_inv);  // fft_in[tau] = nfft * sum_j x_j x_{j+tau}
+    const double total = cum_sq[S];
+    const double scale = 1.0 / nfft;
+    level_db = total > 1e-20 ? 10.0 * std::log10(2.0 * total / static_cast<double>(S)) : -200.0;
+    const auto tmax = static_cast<std::size_t>(tau_max) + 1;
+    diff[0] = 0;
+    cmnd[0] = 1;
+    double running = 0;
+    for (std::size_t tau = 1; tau <= tmax; ++tau) {
+      const double head = cum_sq[S - tau];
+      const double tail = total - cum_sq[tau];
+      const double d = std::max(0.0, head + tail - 2.0 * fft_in[tau] * scale) / static_cast<double>(S - tau);
+      diff[tau] = d;
+      running += d;
+      cmnd[tau] = running > 0 ? d * static_cast<double>(tau) / running : 1.0;
+    }
+
+    // Local minima of the CMNDF within the search range, refined by parabolic interpolation.
+    struct Dip {
+      double tau, value;
+    };
+    std::array<Dip, 64> dips{};
+    std::size_t n_dips = 0;
+    const auto tlo = static_cast<std::size_t>(tau_min);
+    const auto thi = static_cast<std::size_t>(tau_max);
+    for (std::size_t t = tlo; t <= thi && n_dips < dips.size(); ++t) {
+      if (cmnd[t] < cmnd[t - 1] && cmnd[t] <= cmnd[t + 1]) {
+        // Parabolic interpolation on the difference function for the period (YIN step 5), and on the
+        // normalised function for the dip's depth.
+        const double a = diff[t - 1], b = diff[t], c = diff[t + 1];
+        const double den = a - 2 * b + c;
+        const double shift = den > 0 ? std::clamp(0.5 * (a - c) / den, -0.5, 0.5) : 0.0;
+        const double ca = cmnd[t - 1], cb = cmnd[t], cc = cmnd[t + 1];
+        const double value = std::clamp(cb - 0.25 * (ca - cc) * shift, 0.0, cb);
+        dips[n_dips++] = {static_cast<double>(t) + shift, value};
+      }
+    }
+    best_d = 1.0;
+    std::size_t n = 0;
+    if (n_dips == 0) return 0;
+    std::size_t global = 0;
+    for (std::size_t i = 1; i < n_dips; ++i)
+      if (dips[i].value < dips[global].value) global = i;
+    best_d = dips[global].value;
+    std::array<double, 64> prob{};
+    for (int i = 0; i < kThresholds; ++i) {
+      const double s = (i + 1.0) / kThresholds;
+      std::size_t pick = n_dips;
+      for (std::size_t j = 0; j < n_dips; ++j)
+        if (dips[j].value < s) {
+          pick = j;
+          break;
+        }
+      if (pick < n_dips)
+        prob[pick] += thr_weight[static_cast<std::size_t>(i)];
+      else
+        prob[global] += 0.01 * thr_weight[static_cast<std::size_t>(i)];  // as in probabilistic YIN
+    }
+    // Keep the most probable candidates.
+    for (std::size_t k = 0; k < kMaxCandidates; ++k) {
+      std::size_t best = n_dips;
+      for (std::size_t j = 0; j < n_dips; ++j)
+        if (prob[j] > 1e-6 && (best == n_dips || prob[j] > prob[best])) best = j;
+      if (best == n_dips) break;
+      const double f = fa / dips[best].tau;
+      if (f >= cfg.f0_min_hz * 0.97 && f <= cfg.f0_max_hz * 1.03) {
+        out[n++] = {static_cast<float>(f), static_cast<float>(prob[best]), static_cast<float>(bin_of(f))};
+      }
+      prob[best] = 0;
+    }
+    return n;
+  }
+
+  void analyse_frame(std::int64_t k, FrameSink& sink) {
+    const std::int64_t start = frame_start(k);
+    const float* x = buf.data() + (start - buf_start);
+    FrameRecord& rec = records[static_cast<std::size_t>(k % ring_len)];
+    rec = FrameRecord{};
+    rec.index = k;
+    rec.time_s = static_cast<double>(frame_centre(k)) / fa;
+    rec.level_dbfs = frame_level_dbfs(k);
+    double level_db = -200, best_d = 1;
+    rec.n_cand = yin_candidates(x, rec.cand, level_db, best_d);
+
+    // Voicing evidence: candidate probability mass, gated by level (absolute floor and relative to the
+    // recent peak of periodic frames, so that a far quieter background is not taken for the voice).
+    double pv = 0;
+    for (std::size_t i = 0; i < rec.n_cand; ++i) pv += rec.cand[i].prob;
+    pv = std::min(pv, 0.99);
+    const double hop_s = cfg.hop_ms * 1e-3;
+    peak_db = std::max(peak_db - kPeakDecayDbPerS * hop_s, -200.0);
+    if (best_d < 0.15 && level_db > cfg.level_floor_dbfs) peak_db = std::max(peak_db, level_db);
+    auto sigmoid = [](double z) { return 1.0 / (1.0 + std::exp(-z)); };
+    const double gate = sigmoid((level_db - cfg.level_floor_dbfs) / 2.0) *
+                        sigmoid((level_db - (peak_db - kLevelGateBelowPeakDb)) / 3.0);
+    pv *= gate;
+    pv = std::clamp(pv, 1e-4, 0.9999);
+
+    // Observation probabilities: voiced bins near each candidate share pv by candidate weight.
+    const auto U = static_cast<std::size_t>(n_bins);
+    std::fill(obs.begin(), obs.end(), 0.0);
+    double wsum = 0;
+    for (std::size_t i = 0; i < rec.n_cand; ++i) wsum += rec.cand[i].prob;
+    const double floor_obs = pv * 1e-3 / n_bins;
+    for (std::size_t b = 0; b < U; ++b) obs[b] = floor_obs;
+    for (std::size_t i = 0; i < rec.n_cand && wsum > 0; ++i) {
+      const double w = pv * rec.cand[i].prob / wsum;
+      const double cb = rec.cand[i].bin;
+      const int lo = std::max(0, static_cast<int>(std::floor(cb)) - 2);
+      const int hi = std::min(n_bins - 1, static_cast<int>(std::ceil(cb)) + 2);
+      for (int b = lo; b <= hi; ++b) {
+        const double dc = (b - cb) * kBinCents / 15.0;
+        obs[static_cast<std::size_t>(b)] += w * std::exp(-0.5 * dc * dc);
+      }
+    }
+    obs[U] = 1.0 - pv;
+
+    hmm_step(k);
+
+    // Live value from the forward posterior.
+    double pvoiced = 0;
+    for (std::size_t b = 0; b < U; ++b) pvoiced += alpha[b];
+    rec.voicing = static_cast<float>(pvoiced);
+    if (pvoiced >= 0.5 && rec.n_cand > 0) {
+      double best_mass = -1;
+      std::size_t best_c = 0;
+      for (std::size_t i = 0; i < rec.n_cand; ++i) {
+        const double m = mass_near(rec.cand[i].bin);
+        if (m > best_mass) {
+          best_mass = m;
+          best_c = i;
+        }
+      }
+      rec.live_f0 = rec.cand[best_c].f0_hz;
+      rec.confidence = static_cast<float>(best_mass);
+    }
+    LiveFrame live;
+    live.index = k;
+    live.time_s = rec.time_s;
+    live.f0_hz = rec.live_f0;
+    live.voicing = rec.voicing;
+    live.confidence = rec.confidence;
+    live.level_dbfs = rec.level_dbfs;
+    sink.on_live(live);
+
+    if (k - next_settled >= settle) settle_from(k, k - settle, sink);
+  }
+
+  [[nodiscard]] double mass_near(double bin) const {
+    const double reach = 50.0 / kBinCents;
+    const int lo = std::max(0, static_cast<int>(std::ceil(bin - reach)));
+    const int hi = std::min(n_bins - 1, static_cast<int>(std::floor(bin + reach)));
+    double m = 0;
+    for (int b = lo; b <= hi; ++b) m += alpha[static_cast<std::size_t>(b)];
+    return m;
+  }
+
+  // One step of forward filtering (alpha) and of Viterbi (delta, with back pointers).
+  void hmm_step(std::int64_t k) {
+    const auto U = static_cast<std::size_t>(n_bins);
+    const double p_vu = kVoicingSwitch, p_uv = kVoicingSwitch;
+    std::int16_t* bp = backptr.data() + static_cast<std::size_t>(k % ring_len) * (U + 1);
+    if (!hmm_started) {
+      for (std::size_t s = 0; s <= U; ++s) {
+        const double prior = s == U ? 0.5 : 0.5 / static_cast<double>(U);
+        alpha[s] = prior * obs[s];
+        delta[s] = prior * obs[s];
+        bp[s] = static_cast<std::int16_t>(s);
+      }
+      hmm_started = true;
+    } else {
+      double pv_prev = 0, dv_max = 0;
+      std::size_t dv_arg = 0;
+      for (std::size_t b = 0; b < U; ++b) {
+        pv_prev += alpha[b];
+        if (delta[b] > dv_max) {
+          dv_max = delta[b];
+          dv_arg = b;
+        }
+      }
+      const double pu_prev = alpha[U];
+      const double du_prev = delta[U];
+      const double enter = p_uv / static_cast<double>(U);
+      const int J = jump;
+      for (int b = 0; b < n_bins; ++b) {
+        double sum = 0, best = -1;
+        int arg = b;
+        const int lo = std::max(0, b - J), hi = std::min(n_bins - 1, b + J);
+        for (int s = lo; s <= hi; ++s) {
+          const double t = tri[static_cast<std::size_t>(s - b + J)];
+          sum += t * alpha[static_cast<std::size_t>(s)];
+          const double v = t * delta[static_cast<std::size_t>(s)];
+          if (v > best) {
+            best = v;
+            arg = s;
+          }
+        }
+        const auto ub = static_cast<std::size_t>(b);
+        alpha_new[ub] = obs[ub] * ((1 - p_vu) * sum + pu_prev * enter);
+        const double from_voiced = (1 - p_vu) * best, from_unvoiced = du_prev * enter;
+        if (from_voiced >= from_unvoiced) {
+          delta_new[ub] = obs[ub] * from_voiced;
+          bp[ub] = static_cast<std::int16_t>(arg);
+        } else {
+          delta_new[ub] = obs[ub] * from_unvoiced;
+          bp[ub] = static_cast<std::int16_t>(U);
+        }
+      }
+      alpha_new[U] = obs[U] * (pv_prev * p_vu + pu_prev * (1 - p_uv));
+      const double uv_from_v = dv_max * p_vu, uv_from_u = du_prev * (1 - p_uv);
+      if (uv_from_v > uv_from_u) {
+        delta_new[U] = obs[U] * uv_from_v;
+        bp[U] = static_cast<std::int16_t>(dv_arg);
+      } else {
+        delta_new[U] = obs[U] * uv_from_u;
+        bp[U] = static_cast<std::int16_t>(U);
+      }
+      alpha.swap(alpha_new);
+      delta.swap(delta_new);
+    }
+    const double asum = std::accumulate(alpha.begin(), alpha.end(), 0.0);
+    const double dmax = *std::max_element(delta.begin(), delta.end());
+    for (auto& a : alpha) a = asum > 0 ? a / asum : 1.0 / static_cast<double>(U + 1);
+    for (auto& d : delta) d = dmax > 0 ? d / dmax : 1.0;
+  }
+
+  // Trace back from the best state at frame `now` and emit settled frames next_settled..upto.
+  void settle_from(std::int64_t now, std::int64_t upto, FrameSink& sink) {
+    const auto U = static_cast<std::size_t>(n_bins);
+    std::size_t state = static_cast<std::size_t>(std::max_element(delta.begin(), delta.end()) - delta.begin());
+    // Walk back from `now` to `upto`, then emit upto, and further back only if several are pending (flush).
+    std::array<std::size_t, 1024> path{};
+    const std::int64_t first = next_settled;
+    std::int64_t t = now;
+    for (; t > upto; --t) state = static_cast<std::size_t>(backptr[static_cast<std::size_t>(t % ring_len) * (U + 1) + state]);
+    // Now state is the best state at frame `upto`; trace further back for the older pending frames.
+    const auto count = static_cast<std::size_t>(upto - first + 1);
+    path[count - 1] = state;
+    for (std::size_t i = count - 1; i > 0; --i) {
+      state = static_cast<std::size_t>(backptr[static_cast<std::size_t>((first + static_cast<std::int64_t>(i)) % ring_len) * (U + 1) + state]);
+      path[i - 1] = state;
+    }
+    for (std::size_t i = 0; i < count; ++i) emit_settled(first + static_cast<std::int64_t>(i), path[i], sink);
+    next_settled = upto + 1;
+  }
+
+  void emit_settled(std::int64_t k, std::size_t state, FrameSink& sink) {
+    const FrameRecord& rec = records[static_cast<std::size_t>(k % ring_len)];
+    SettledFrame out;
+    out.index = k;
+    out.time_s = rec.time_s;
+    out.live_f0_hz = rec.live_f0;
+    out.voicing = rec.voicing;
+    out.confidence = rec.confidence;
+    out.level_dbfs = rec.level_dbfs;
+    if (state != static_cast<std::size_t>(n_bins)) {
+      // The candidate nearest the path's bin gives the sub-bin frequency; the bin centre if none is near.
+      double best = 1e9;
+      float f = static_cast<float>(f_of_bin(static_cast<double>(state)));
+      for (std::size_t i = 0; i < rec.n_cand; ++i) {
+        const double d = std::abs(rec.cand[i].bin - static_cast<double>(state));
+        if (d < best && d <= 3.0) {
+          best = d;
+          f = rec.cand[i].f0_hz;
+        }
+      }
+      out.f0_hz = f;
+    }
+    sink.on_settled(out);
+  }
+
+  void process(std::span<const float> block, FrameSink& sink) {
+    std::array<float, 1024> clean{};
+    std::size_t pos = 0;
+    while (pos < block.size()) {
+      const std::size_t n = std::min(clean.size(), block.size() - pos);
+      for (std::size_t i = 0; i < n; ++i) {
+        float v = block[pos + i];
+        if (!std::isfinite(v)) {
+          v = 0.0f;
+          ++nonfinite;
+        }
+        clean[i] = v;
+        level_push(static_cast<double>(v) * v);
+      }
+      feed_resampler(clean.data(), n, sink);
+      pos += n;
+    }
+  }
+
+  void feed_resampler(const float* x, std::size_t n, FrameSink& sink) {
+    if (!soxr) {
+      push_analysis(x, n, sink);
+      return;
+    }
+    // With x == nullptr this flushes the resampler.
+    bool flushing = x == nullptr;
+    for (;;) {
+      std::size_t idone = 0, odone = 0;
+      soxr_process(soxr, x, n, &idone, rs_out.data(), rs_out.size(), &odone);
+      push_analysis(rs_out.data(), odone, sink);
+      if (!flushing) {
+        x += idone;
+        n -= idone;
+        if (n == 0 && odone < rs_out.size()) break;
+      } else if (odone == 0) {
+        break;
+      }
+    }
+  }
+
+  void flush(FrameSink& sink) {
+    const std::int64_t total = input_count;
+    const double duration = static_cast<double>(total) / fs;
+    const auto last = static_cast<std::int64_t>(std::floor(duration / (cfg.hop_ms * 1e-3) + 1e-9));
+    // Close the level bins of the last frame with silence.
+    while (lvl_bin <= 2 * last + 1) level_push(0.0);
+    input_count = total;
+    if (soxr) feed_resampler(nullptr, 0, sink);
+    while (next_frame <= last) {
+      const std::int64_t need = frame_start(next_frame) + span - (buf_start + static_cast<std::int64_t>(buf_len));
+      push_analysis_zeros(static_cast<std::size_t>(std::max<std::int64_t>(need, 1)), sink);
+    }
+    if (next_settled < next_frame) settle_from(next_frame - 1, next_frame - 1, sink);
+  }
+};
+
+PitchTracker::PitchTracker(const TrackerConfig& config) : impl_(std::make_unique<Impl>(config)) {}
+PitchTracker::~PitchTracker() = default;
+void PitchTracker::process(std::span<const float> block, FrameSink& sink) { impl_->process(block, sink); }
+void PitchTracker::flush(FrameSink& sink) { impl_->flush(sink); }
+void PitchTracker::reset() { impl_->reset(); }
+const TrackerConfig& PitchTracker::config() const { return impl_->cfg; }
+double PitchTracker::analysis_rate_hz() const { return impl_->fa; }
+double PitchTracker::live_latency_s() const { return (impl_->span - impl_->half) / impl_->fa; }
+int PitchTracker::settle_frames() const { return impl_->settle; }
+std::int64_t PitchTracker::nonfinite_samples() const { return impl_->nonfinite; }
+
+}  // namespace pitchwire::dsp
