@@ -80,9 +80,10 @@ struct Biquad {
 // Cancels steady mains hum: for the 50 Hz and the 60 Hz series, one complex amplitude per harmonic is
 // estimated by LMS against a reference oscillator (an adaptive notch bank). The step size starts as a
 // running average and settles to a narrow bandwidth (~0.5 Hz), so only components that stay phase-locked
-// to a mains harmonic for a good part of a second are removed. Harmonics above the fundamental are
-// subtracted only while the series' fundamental itself is present: a voice whose harmonics happen to sit
-// on multiples of 50 Hz (a steady 100 Hz vowel) has no energy at 50 Hz and is left alone.
+// to a mains harmonic for a good part of a second are removed. The estimates always run, but a series is
+// subtracted only while its fundamental (50 or 60 Hz itself) is present and not weaker than its harmonics:
+// a voice whose harmonics happen to sit on multiples of 50 Hz (a steady 100 Hz vowel) has no energy at
+// 50 Hz and is left alone, and so is a voice while the estimates are still settling.
 class HumCanceller {
  public:
   HumCanceller() = default;
@@ -99,22 +100,21 @@ class HumCanceller {
     }
     mu_min_ = 2.0 / (0.35 * fs);  // time constant ~0.35 s
     n0_ = 0.02 * fs;
+    settle_samples_ = static_cast<std::int64_t>(0.5 * fs);
   }
 
   double process(double x) {
     double est_all = 0, est_active = 0;
     for (auto& s : series_) {
-      double est = 0, est_fund = 0;
-      for (std::size_t h = 0; h < s.osc.size(); ++h) {
-        const double v = s.amp[h].real() * s.osc[h].real() - s.amp[h].imag() * s.osc[h].imag();
-        est += v;
-        if (h == 0) est_fund = v;
-      }
+      double est = 0;
+      for (std::size_t h = 0; h < s.osc.size(); ++h)
+        est += s.amp[h].real() * s.osc[h].real() - s.amp[h].imag() * s.osc[h].imag();
       est_all += est;
-      est_active += s.active ? est : est_fund;
+      if (s.active) est_active += est;
     }
     const double e = x - est_all;
     const double mu = std::max(mu_min_, 2.0 / (static_cast<double>(n_) + n0_));
+    power_ += 0.5 * mu * (x * x - power_);  // mean square of the input, same averaging as the estimates
     ++n_;
     for (auto& s : series_) {
       for (std::size_t h = 0; h < s.osc.size(); ++h) {
@@ -122,9 +122,12 @@ class HumCanceller {
         s.osc[h] *= s.rot[h];
       }
     }
-    if ((n_ & 255) == 0) renormalize();
+    if ((n_ & 63) == 0) renormalize();
     return x - est_active;
   }
+
+  // True while the estimates are still converging (the first half second of a stream).
+  [[nodiscard]] bool settling() const { return n_ < settle_samples_; }
 
   void reset() {
     for (auto& s : series_) {
@@ -133,6 +136,7 @@ class HumCanceller {
       s.active = false;
     }
     n_ = 0;
+    power_ = 0;
   }
 
  private:
@@ -143,20 +147,21 @@ class HumCanceller {
 
   void renormalize() {
     for (auto& s : series_) {
-      double max_upper = 0;
-      for (std::size_t h = 0; h < s.osc.size(); ++h) {
-        s.osc[h] /= std::abs(s.osc[h]);
-        if (h > 0) max_upper = std::max(max_upper, std::abs(s.amp[h]));
-      }
-      const double fund = s.amp.empty() ? 0.0 : std::abs(s.amp[0]);
-      // Hysteresis: on at a quarter of the strongest harmonic, off at an eighth.
-      s.active = s.active ? fund > 0.125 * max_upper && fund > 1e-5 : fund > 0.25 * max_upper && fund > 2e-5;
+      for (auto& o : s.osc) o /= std::abs(o);
+      // Share of the input's power carried by the mains fundamental. On at 20 % (hum alone, or hum in a
+      // pause), off below 0.5 % (hum far under a voice no longer matters). Leakage of a voice into the
+      // 50/60 Hz estimates stays well under 20 % even while the estimates are still settling.
+      const double fund_power = s.amp.empty() ? 0.0 : 0.5 * std::norm(s.amp[0]);
+      const double share = power_ > 1e-14 ? fund_power / power_ : 0.0;
+      s.active = s.active ? share > 0.005 : share > 0.2;
     }
   }
 
   std::vector<Series> series_;
   double mu_min_ = 0, n0_ = 1;
+  double power_ = 0;
   std::int64_t n_ = 0;
+  std::int64_t settle_samples_ = 0;
 };
 
 struct Candidate {
@@ -213,6 +218,7 @@ struct PitchTracker::Impl {
 
   // Analysis buffer: buf[i] holds analysis sample buf_start + i.
   std::vector<float> buf;
+  std::vector<float> hum_removed;  // what the hum canceller took out, same indexing as buf
   std::size_t buf_len = 0;
   std::int64_t buf_start = 0;
   std::int64_t analysis_count = 0;  // analysis samples produced so far (excluding the initial padding)
@@ -237,7 +243,7 @@ struct PitchTracker::Impl {
   // HMM.
   int n_bins = 0, jump = 0;
   double bin0_cents = 0;  // cents re 1 Hz of bin 0's centre
-  std::vector<double> tri, alpha, alpha_new, delta, delta_new, obs;
+  std::vector<double> kernel, delta, delta_new, obs;
   std::vector<std::int16_t> backptr;  // ring [ring_len][n_bins + 1]
   int settle = 0, ring_len = 0;
   std::vector<FrameRecord> records;
@@ -273,6 +279,7 @@ struct PitchTracker::Impl {
     hum = HumCanceller(fa, kHumMaxHz);
 
     buf.assign(static_cast<std::size_t>(span) + 8192, 0.0f);
+    hum_removed.assign(buf.size(), 0.0f);
 
     {
       std::lock_guard<std::mutex> lock(fftw_planner_mutex());
@@ -300,13 +307,11 @@ struct PitchTracker::Impl {
     bin0_cents = 1200.0 * std::log2(cfg.f0_min_hz);
     n_bins = static_cast<int>(std::ceil(1200.0 * std::log2(cfg.f0_max_hz / cfg.f0_min_hz) / kBinCents)) + 1;
     jump = std::max(1, static_cast<int>(std::ceil(kMaxSlopeStPerS * 100.0 * cfg.hop_ms * 1e-3 / kBinCents)));
-    tri.resize(static_cast<std::size_t>(2 * jump + 1));
-    double tsum = 0;
-    for (int d = -jump; d <= jump; ++d) tsum += tri[static_cast<std::size_t>(d + jump)] = jump + 1 - std::abs(d);
-    for (auto& t : tri) t /= tsum;
+    // Pitch transition kernel: Gaussian in bins, peak 1, cut at the slope limit.
+    kernel.resize(static_cast<std::size_t>(2 * jump + 1));
+    const double sigma = std::max(1.0, jump / 2.5);
+    for (int d = -jump; d <= jump; ++d) kernel[static_cast<std::size_t>(d + jump)] = std::exp(-0.5 * (d / sigma) * (d / sigma));
     const auto states = static_cast<std::size_t>(n_bins) + 1;
-    alpha.assign(states, 0);
-    alpha_new.assign(states, 0);
     delta.assign(states, 0);
     delta_new.assign(states, 0);
     obs.assign(states, 0);
@@ -333,6 +338,7 @@ struct PitchTracker::Impl {
     lp2.reset();
     hum.reset();
     std::fill(buf.begin(), buf.end(), 0.0f);
+    std::fill(hum_removed.begin(), hum_removed.end(), 0.0f);
     buf_len = static_cast<std::size_t>(half) + 1;  // zeros before time 0
     buf_start = -static_cast<std::int64_t>(buf_len);
     analysis_count = 0;
@@ -385,10 +391,10 @@ struct PitchTracker::Impl {
       const std::size_t room = buf.size() - buf_len;
       const std::size_t take = std::min(room, n);
       for (std::size_t i = 0; i < take; ++i) {
-        double v = hp.process(x[i]);
-        if (cfg.hum_cancel) v = hum.process(v);
-        v = lp2.process(lp1.process(v));
-        buf[buf_len + i] = static_cast<float>(v);
+        const double pre = hp.process(x[i]);
+        const double v = cfg.hum_cancel ? hum.process(pre) : pre;
+        hum_removed[buf_len + i] = static_cast<float>(pre - v);
+        buf[buf_len + i] = static_cast<float>(lp2.process(lp1.process(v)));
       }
       buf_len += take;
       analysis_count += static_cast<std::int64_t>(take);
@@ -415,6 +421,8 @@ struct PitchTracker::Impl {
     if (drop <= 0 || buf_len < buf.size() / 2) return;
     const auto d = static_cast<std::size_t>(std::min<std::int64_t>(drop, static_cast<std::int64_t>(buf_len)));
     std::copy(buf.begin() + static_cast<std::ptrdiff_t>(d), buf.begin() + static_cast<std::ptrdiff_t>(buf_len), buf.begin());
+    std::copy(hum_removed.begin() + static_cast<std::ptrdiff_t>(d),
+              hum_removed.begin() + static_cast<std::ptrdiff_t>(buf_len), hum_removed.begin());
     buf_len -= d;
     buf_start += static_cast<std::int64_t>(d);
   }
@@ -544,13 +552,29 @@ struct PitchTracker::Impl {
     // recent peak of periodic frames, so that a far quieter background is not taken for the voice).
     double pv = 0;
     for (std::size_t i = 0; i < rec.n_cand; ++i) pv += rec.cand[i].prob;
+    // Start-up guard: until the hum canceller has converged, a periodicity at the mains frequency itself
+    // (50 or 60 Hz within 1.5 %) is not trusted.
+    if (cfg.hum_cancel && hum.settling()) {
+      pv = 0;
+      for (std::size_t i = 0; i < rec.n_cand; ++i) {
+        const double f = rec.cand[i].f0_hz;
+        if (std::abs(f / 50.0 - 1.0) < 0.015 || std::abs(f / 60.0 - 1.0) < 0.015) rec.cand[i].prob *= 0.02f;
+        pv += rec.cand[i].prob;
+      }
+    }
     pv = std::min(pv, 0.99);
     const double hop_s = cfg.hop_ms * 1e-3;
     peak_db = std::max(peak_db - kPeakDecayDbPerS * hop_s, -200.0);
     if (best_d < 0.15 && level_db > cfg.level_floor_dbfs) peak_db = std::max(peak_db, level_db);
     auto sigmoid = [](double z) { return 1.0 / (1.0 + std::exp(-z)); };
+    // What is left where the hum canceller removed far more than it left is hum residue, not a voice.
+    double removed = 0;
+    const float* h = hum_removed.data() + (start - buf_start);
+    for (int i = 0; i < span; ++i) removed += static_cast<double>(h[i]) * h[i];
+    const double removed_db = removed > 1e-20 ? 10.0 * std::log10(2.0 * removed / span) : -200.0;
     const double gate = sigmoid((level_db - cfg.level_floor_dbfs) / 2.0) *
-                        sigmoid((level_db - (peak_db - kLevelGateBelowPeakDb)) / 3.0);
+                        sigmoid((level_db - (peak_db - kLevelGateBelowPeakDb)) / 3.0) *
+                        sigmoid((level_db - (removed_db - 6.0)) / 2.0);
     pv *= gate;
     pv = std::clamp(pv, 1e-4, 0.9999);
 
@@ -561,36 +585,36 @@ struct PitchTracker::Impl {
     for (std::size_t i = 0; i < rec.n_cand; ++i) wsum += rec.cand[i].prob;
     const double floor_obs = pv * 1e-3 / n_bins;
     for (std::size_t b = 0; b < U; ++b) obs[b] = floor_obs;
-    for (std::size_t i = 0; i < rec.n_cand && wsum > 0; ++i) {
-      const double w = pv * rec.cand[i].prob / wsum;
+    double wmax = 0;
+    for (std::size_t i = 0; i < rec.n_cand; ++i) wmax = std::max(wmax, static_cast<double>(rec.cand[i].prob));
+    for (std::size_t i = 0; i < rec.n_cand && wmax > 0; ++i) {
+      const double w = pv * rec.cand[i].prob / wmax;  // the likeliest candidate carries the full evidence
       const double cb = rec.cand[i].bin;
       const int lo = std::max(0, static_cast<int>(std::floor(cb)) - 2);
       const int hi = std::min(n_bins - 1, static_cast<int>(std::ceil(cb)) + 2);
       for (int b = lo; b <= hi; ++b) {
-        const double dc = (b - cb) * kBinCents / 15.0;
-        obs[static_cast<std::size_t>(b)] += w * std::exp(-0.5 * dc * dc);
+        const double dc = (b - cb) * kBinCents / 25.0;
+        auto& o = obs[static_cast<std::size_t>(b)];
+        o = std::max(o, w * std::exp(-0.5 * dc * dc));
       }
     }
     obs[U] = 1.0 - pv;
 
     hmm_step(k);
 
-    // Live value from the forward posterior.
-    double pvoiced = 0;
-    for (std::size_t b = 0; b < U; ++b) pvoiced += alpha[b];
-    rec.voicing = static_cast<float>(pvoiced);
-    if (pvoiced >= 0.5 && rec.n_cand > 0) {
-      double best_mass = -1;
-      std::size_t best_c = 0;
-      for (std::size_t i = 0; i < rec.n_cand; ++i) {
-        const double m = mass_near(rec.cand[i].bin);
-        if (m > best_mass) {
-          best_mass = m;
-          best_c = i;
-        }
+    // Live value: the best path ending at this frame (zero-lag max-product decoding).
+    double best_voiced = 0;
+    std::size_t best_bin = 0;
+    for (std::size_t b = 0; b < U; ++b)
+      if (delta[b] > best_voiced) {
+        best_voiced = delta[b];
+        best_bin = b;
       }
-      rec.live_f0 = rec.cand[best_c].f0_hz;
-      rec.confidence = static_cast<float>(best_mass);
+    rec.voicing = static_cast<float>(best_voiced / (best_voiced + delta[U]));
+    if (best_voiced > delta[U]) {
+      const std::size_t c = nearest_candidate(rec, best_bin);
+      rec.live_f0 = c < rec.n_cand ? rec.cand[c].f0_hz : static_cast<float>(f_of_bin(static_cast<double>(best_bin)));
+      rec.confidence = c < rec.n_cand && wsum > 0 ? static_cast<float>(pv * rec.cand[c].prob / wsum) : 0.0f;
     }
     LiveFrame live;
     live.index = k;
@@ -604,58 +628,57 @@ struct PitchTracker::Impl {
     if (k - next_settled >= settle) settle_from(k, k - settle, sink);
   }
 
-  [[nodiscard]] double mass_near(double bin) const {
-    const double reach = 50.0 / kBinCents;
-    const int lo = std::max(0, static_cast<int>(std::ceil(bin - reach)));
-    const int hi = std::min(n_bins - 1, static_cast<int>(std::floor(bin + reach)));
-    double m = 0;
-    for (int b = lo; b <= hi; ++b) m += alpha[static_cast<std::size_t>(b)];
-    return m;
+  // The candidate nearest a path's bin (within 3 bins, 60 cents), or n_cand when there is none.
+  [[nodiscard]] static std::size_t nearest_candidate(const FrameRecord& rec, std::size_t bin) {
+    double best = 3.0;
+    std::size_t pick = rec.n_cand;
+    for (std::size_t i = 0; i < rec.n_cand; ++i) {
+      const double d = std::abs(rec.cand[i].bin - static_cast<double>(bin));
+      if (d <= best) {
+        best = d;
+        pick = i;
+      }
+    }
+    return pick;
   }
 
-  // One step of forward filtering (alpha) and of Viterbi (delta, with back pointers).
+  // One step of max-product decoding (Viterbi) with back pointers. Scores are balanced so that a steady
+  // voiced path and a steady unvoiced path compare frame by frame as pv against 1 - pv: staying on a bin
+  // costs nothing, moving costs the kernel's fall-off, switching voicing costs log(kVoicingSwitch).
   void hmm_step(std::int64_t k) {
     const auto U = static_cast<std::size_t>(n_bins);
-    const double p_vu = kVoicingSwitch, p_uv = kVoicingSwitch;
     std::int16_t* bp = backptr.data() + static_cast<std::size_t>(k % ring_len) * (U + 1);
     if (!hmm_started) {
       for (std::size_t s = 0; s <= U; ++s) {
-        const double prior = s == U ? 0.5 : 0.5 / static_cast<double>(U);
-        alpha[s] = prior * obs[s];
-        delta[s] = prior * obs[s];
+        delta[s] = obs[s];
         bp[s] = static_cast<std::int16_t>(s);
       }
       hmm_started = true;
     } else {
-      double pv_prev = 0, dv_max = 0;
+      double dv_max = 0;
       std::size_t dv_arg = 0;
-      for (std::size_t b = 0; b < U; ++b) {
-        pv_prev += alpha[b];
+      for (std::size_t b = 0; b < U; ++b)
         if (delta[b] > dv_max) {
           dv_max = delta[b];
           dv_arg = b;
         }
-      }
-      const double pu_prev = alpha[U];
       const double du_prev = delta[U];
-      const double enter = p_uv / static_cast<double>(U);
+      const double stay = 1 - kVoicingSwitch;
+      const double from_unvoiced = du_prev * kVoicingSwitch;
       const int J = jump;
       for (int b = 0; b < n_bins; ++b) {
-        double sum = 0, best = -1;
+        double best = -1;
         int arg = b;
         const int lo = std::max(0, b - J), hi = std::min(n_bins - 1, b + J);
         for (int s = lo; s <= hi; ++s) {
-          const double t = tri[static_cast<std::size_t>(s - b + J)];
-          sum += t * alpha[static_cast<std::size_t>(s)];
-          const double v = t * delta[static_cast<std::size_t>(s)];
+          const double v = kernel[static_cast<std::size_t>(s - b + J)] * delta[static_cast<std::size_t>(s)];
           if (v > best) {
             best = v;
             arg = s;
           }
         }
         const auto ub = static_cast<std::size_t>(b);
-        alpha_new[ub] = obs[ub] * ((1 - p_vu) * sum + pu_prev * enter);
-        const double from_voiced = (1 - p_vu) * best, from_unvoiced = du_prev * enter;
+        const double from_voiced = stay * best;
         if (from_voiced >= from_unvoiced) {
           delta_new[ub] = obs[ub] * from_voiced;
           bp[ub] = static_cast<std::int16_t>(arg);
@@ -664,8 +687,7 @@ struct PitchTracker::Impl {
           bp[ub] = static_cast<std::int16_t>(U);
         }
       }
-      alpha_new[U] = obs[U] * (pv_prev * p_vu + pu_prev * (1 - p_uv));
-      const double uv_from_v = dv_max * p_vu, uv_from_u = du_prev * (1 - p_uv);
+      const double uv_from_v = dv_max * kVoicingSwitch, uv_from_u = du_prev * stay;
       if (uv_from_v > uv_from_u) {
         delta_new[U] = obs[U] * uv_from_v;
         bp[U] = static_cast<std::int16_t>(dv_arg);
@@ -673,12 +695,9 @@ struct PitchTracker::Impl {
         delta_new[U] = obs[U] * uv_from_u;
         bp[U] = static_cast<std::int16_t>(U);
       }
-      alpha.swap(alpha_new);
       delta.swap(delta_new);
     }
-    const double asum = std::accumulate(alpha.begin(), alpha.end(), 0.0);
     const double dmax = *std::max_element(delta.begin(), delta.end());
-    for (auto& a : alpha) a = asum > 0 ? a / asum : 1.0 / static_cast<double>(U + 1);
     for (auto& d : delta) d = dmax > 0 ? d / dmax : 1.0;
   }
 
@@ -713,16 +732,8 @@ struct PitchTracker::Impl {
     out.level_dbfs = rec.level_dbfs;
     if (state != static_cast<std::size_t>(n_bins)) {
       // The candidate nearest the path's bin gives the sub-bin frequency; the bin centre if none is near.
-      double best = 1e9;
-      float f = static_cast<float>(f_of_bin(static_cast<double>(state)));
-      for (std::size_t i = 0; i < rec.n_cand; ++i) {
-        const double d = std::abs(rec.cand[i].bin - static_cast<double>(state));
-        if (d < best && d <= 3.0) {
-          best = d;
-          f = rec.cand[i].f0_hz;
-        }
-      }
-      out.f0_hz = f;
+      const std::size_t c = nearest_candidate(rec, state);
+      out.f0_hz = c < rec.n_cand ? rec.cand[c].f0_hz : static_cast<float>(f_of_bin(static_cast<double>(state)));
     }
     sink.on_settled(out);
   }
