@@ -8,8 +8,9 @@
 //   input -> [resample to the analysis rate, libsoxr] -> DC/rumble high-pass -> mains hum canceller
 //         -> low-pass (analysis band) -> per hop: YIN difference function through an FFT (FFTW),
 //            candidate periods with probabilities (a distribution over thresholds, as probabilistic YIN)
-//         -> HMM over pitch bins plus an unvoiced state: forward filtering gives the live value at once,
-//            fixed-lag Viterbi gives the settled value `settle_ms` later.
+//         -> HMM over 20-cent pitch bins plus an unvoiced state, decoded by max-product (Viterbi): the best
+//            path ending at the newest frame gives the live value at once (zero lag), the same path
+//            traced back `settle_ms` gives the settled value (fixed-lag Viterbi).
 // Frames are the same whatever the block sizes (tested).
 #pragma once
 
@@ -39,8 +40,10 @@ struct LiveFrame {
   std::int64_t index = 0;             // hop number from the start of the stream, 0-based
   double time_s = 0.0;                // centre of the analysis window on the input clock
   std::optional<float> f0_hz;         // empty when unvoiced
-  float voicing = 0.0f;               // probability that the frame is voiced, 0..1
-  float confidence = 0.0f;            // posterior mass within 50 cents of the reported F0, 0..1
+  float voicing = 0.0f;               // best voiced path score / (best voiced + best unvoiced), 0..1;
+                                      // the live call is voiced when it exceeds 0.5
+  float confidence = 0.0f;            // periodicity evidence for the reported F0 in this frame alone:
+                                      // its candidate's probability, level-gated, 0..1; 0 when unvoiced
   float level_dbfs = -200.0f;         // RMS level of the input over one hop centred on time_s (AES17 dBFS)
 };
 
