@@ -21,15 +21,15 @@ namespace pitchwire::dsp {
 namespace {
 
 constexpr double kPi = 3.14159265358979323846;
-constexpr double kAnalysisRateHz = 16000.0;  // inputs above this are resampled down to it
-constexpr double kBinCents = 20.0;           // HMM pitch bin width
+constexpr double kAnalysisRateHz = 8000.0;   // inputs above this are resampled down to it
+constexpr double kBinCents = 25.0;           // HMM pitch bin width
 constexpr double kMaxSlopeStPerS = 200.0;    // fastest F0 change the tracker follows (semitones per second)
 constexpr double kVoicingSwitch = 0.02;      // per-frame probability of leaving the voiced / unvoiced state
 constexpr double kLowpassHz = 1800.0;        // analysis band upper edge (YIN paper: low-passing helps)
 constexpr double kHighpassHz = 40.0;         // DC and rumble
 constexpr double kHumMaxHz = 1000.0;         // highest mains harmonic cancelled
 constexpr std::size_t kMaxCandidates = 8;
-constexpr int kThresholds = 100;             // thresholds 0.01 .. 1.00 for the candidate distribution
+constexpr std::size_t kThresholds = 100;     // resolution of the threshold prior's table
 constexpr double kLevelGateBelowPeakDb = 22.0;
 constexpr double kPeakDecayDbPerS = 3.0;
 
@@ -80,84 +80,121 @@ struct Biquad {
 // Cancels steady mains hum: for the 50 Hz and the 60 Hz series, one complex amplitude per harmonic is
 // estimated by LMS against a reference oscillator (an adaptive notch bank). The step size starts as a
 // running average and settles to a narrow bandwidth (~0.5 Hz), so only components that stay phase-locked
-// to a mains harmonic for a good part of a second are removed. The estimates always run, but a series is
-// subtracted only while its fundamental (50 or 60 Hz itself) is present and not weaker than its harmonics:
-// a voice whose harmonics happen to sit on multiples of 50 Hz (a steady 100 Hz vowel) has no energy at
-// 50 Hz and is left alone, and so is a voice while the estimates are still settling.
+// to a mains harmonic for a good part of a second are removed.
+// The two fundamentals (50 and 60 Hz themselves) are always estimated; a series is switched on, and its
+// harmonics estimated and the whole series subtracted, only while its fundamental carries at least 20 %
+// of the input power (off below 0.5 %). A voice whose harmonics happen to sit on multiples of 50 Hz (a
+// steady 100 Hz vowel) has no energy at 50 Hz and is left alone, and without hum the cost is two
+// oscillators per sample.
 class HumCanceller {
  public:
   HumCanceller() = default;
   HumCanceller(double fs, double max_hz) {
-    for (double mains : {50.0, 60.0}) {
-      Series s;
-      for (int k = 1; k * mains <= std::min(max_hz, 0.45 * fs); ++k) {
+    for (std::size_t m = 0; m < 2; ++m) {
+      Series& s = series_[m];
+      const double mains = m == 0 ? 50.0 : 60.0;
+      s.n = 0;
+      for (int k = 1; k * mains <= std::min(max_hz, 0.45 * fs) && s.n < kMaxHarmonics; ++k, ++s.n) {
         const double w = 2 * kPi * k * mains / fs;
-        s.rot.emplace_back(std::cos(w), std::sin(w));
+        s.rot_re[s.n] = std::cos(w);
+        s.rot_im[s.n] = std::sin(w);
       }
-      s.osc.assign(s.rot.size(), {1.0, 0.0});
-      s.amp.assign(s.rot.size(), {0.0, 0.0});
-      series_.push_back(std::move(s));
     }
     mu_min_ = 2.0 / (0.35 * fs);  // time constant ~0.35 s
     n0_ = 0.02 * fs;
     settle_samples_ = static_cast<std::int64_t>(0.5 * fs);
+    reset();
   }
 
+  // Returns the input with the active series removed.
   double process(double x) {
     double est_all = 0, est_active = 0;
-    for (auto& s : series_) {
+    for (Series& s : series_) {
+      const std::size_t n = s.active ? s.n : 1;
       double est = 0;
-      for (std::size_t h = 0; h < s.osc.size(); ++h)
-        est += s.amp[h].real() * s.osc[h].real() - s.amp[h].imag() * s.osc[h].imag();
+      for (std::size_t h = 0; h < n; ++h) est += s.amp_re[h] * s.osc_re[h] - s.amp_im[h] * s.osc_im[h];
       est_all += est;
       if (s.active) est_active += est;
     }
     const double e = x - est_all;
-    const double mu = std::max(mu_min_, 2.0 / (static_cast<double>(n_) + n0_));
+    const double mu = gear(n_);
     power_ += 0.5 * mu * (x * x - power_);  // mean square of the input, same averaging as the estimates
     ++n_;
-    for (auto& s : series_) {
-      for (std::size_t h = 0; h < s.osc.size(); ++h) {
-        s.amp[h] += mu * e * std::conj(s.osc[h]);
-        s.osc[h] *= s.rot[h];
+    for (Series& s : series_) {
+      const std::size_t n = s.active ? s.n : 1;
+      const double mu_h = s.active ? gear(n_ - s.active_since) : mu;
+      s.amp_re[0] += mu * e * s.osc_re[0];
+      s.amp_im[0] -= mu * e * s.osc_im[0];
+      for (std::size_t h = 1; h < n; ++h) {
+        s.amp_re[h] += mu_h * e * s.osc_re[h];
+        s.amp_im[h] -= mu_h * e * s.osc_im[h];
+      }
+      for (std::size_t h = 0; h < n; ++h) {  // osc *= rot
+        const double re = s.osc_re[h] * s.rot_re[h] - s.osc_im[h] * s.rot_im[h];
+        s.osc_im[h] = s.osc_re[h] * s.rot_im[h] + s.osc_im[h] * s.rot_re[h];
+        s.osc_re[h] = re;
       }
     }
-    if ((n_ & 63) == 0) renormalize();
+    if ((n_ & 63) == 0) update_state();
     return x - est_active;
   }
 
   // True while the estimates are still converging (the first half second of a stream).
   [[nodiscard]] bool settling() const { return n_ < settle_samples_; }
+  [[nodiscard]] bool any_active() const { return series_[0].active || series_[1].active; }
 
   void reset() {
-    for (auto& s : series_) {
-      std::fill(s.osc.begin(), s.osc.end(), std::complex<double>(1.0, 0.0));
-      std::fill(s.amp.begin(), s.amp.end(), std::complex<double>(0.0, 0.0));
+    for (Series& s : series_) {
+      s.osc_re.fill(1.0);
+      s.osc_im.fill(0.0);
+      s.amp_re.fill(0.0);
+      s.amp_im.fill(0.0);
       s.active = false;
+      s.active_since = 0;
     }
     n_ = 0;
     power_ = 0;
   }
 
  private:
+  static constexpr std::size_t kMaxHarmonics = 24;
   struct Series {
-    std::vector<std::complex<double>> rot, osc, amp;
+    std::array<double, kMaxHarmonics> rot_re{}, rot_im{}, osc_re{}, osc_im{}, amp_re{}, amp_im{};
+    std::size_t n = 0;
     bool active = false;
+    std::int64_t active_since = 0;
   };
 
-  void renormalize() {
-    for (auto& s : series_) {
-      for (auto& o : s.osc) o /= std::abs(o);
-      // Share of the input's power carried by the mains fundamental. On at 20 % (hum alone, or hum in a
-      // pause), off below 0.5 % (hum far under a voice no longer matters). Leakage of a voice into the
-      // 50/60 Hz estimates stays well under 20 % even while the estimates are still settling.
-      const double fund_power = s.amp.empty() ? 0.0 : 0.5 * std::norm(s.amp[0]);
+  [[nodiscard]] double gear(std::int64_t n) const { return std::max(mu_min_, 2.0 / (static_cast<double>(n) + n0_)); }
+
+  void update_state() {
+    for (Series& s : series_) {
+      // Oscillators drift off the unit circle by rounding; the running phases of the harmonics that were
+      // idle are re-derived from the fundamental's so that they are right when the series switches on.
+      for (std::size_t h = 0; h < s.n; ++h) {
+        const double r = std::hypot(s.osc_re[h], s.osc_im[h]);
+        s.osc_re[h] /= r;
+        s.osc_im[h] /= r;
+      }
+      const double fund_power = 0.5 * (s.amp_re[0] * s.amp_re[0] + s.amp_im[0] * s.amp_im[0]);
       const double share = power_ > 1e-14 ? fund_power / power_ : 0.0;
-      s.active = s.active ? share > 0.005 : share > 0.2;
+      const bool on = s.active ? share > 0.005 : share > 0.2;
+      if (on && !s.active) {
+        const std::complex<double> f(s.osc_re[0], s.osc_im[0]);
+        std::complex<double> p = f;
+        for (std::size_t h = 1; h < s.n; ++h) {
+          p *= f;
+          s.osc_re[h] = p.real();
+          s.osc_im[h] = p.imag();
+          s.amp_re[h] = s.amp_im[h] = 0.0;
+        }
+        s.active_since = n_;
+      }
+      s.active = on;
     }
   }
 
-  std::vector<Series> series_;
+  std::array<Series, 2> series_{};
   double mu_min_ = 0, n0_ = 1;
   double power_ = 0;
   std::int64_t n_ = 0;
@@ -219,18 +256,28 @@ struct PitchTracker::Impl {
   // Analysis buffer: buf[i] holds analysis sample buf_start + i.
   std::vector<float> buf;
   std::vector<float> hum_removed;  // what the hum canceller took out, same indexing as buf
+  std::int64_t last_hum_sample = -1;  // analysis index of the last sample the canceller changed
   std::size_t buf_len = 0;
   std::int64_t buf_start = 0;
   std::int64_t analysis_count = 0;  // analysis samples produced so far (excluding the initial padding)
 
   // FFT scratch.
-  double* fft_in = nullptr;
+  double* fft_in = nullptr;   // frame in the first span samples, zeros after (set once)
+  double* fft_out = nullptr;  // autocorrelation
   fftw_complex* spec = nullptr;
   fftw_plan plan_fwd = nullptr, plan_inv = nullptr;
-  std::vector<double> frame, cum_sq, diff, cmnd;
+  std::vector<double> cum_sq, diff, cmnd;
 
-  // Threshold prior.
-  std::array<double, kThresholds> thr_weight{};
+  // Threshold prior: its cumulative distribution at 0, 1/kThresholds, ..., 1.
+  std::array<double, kThresholds + 1> thr_cum{};
+
+  // Prior mass on thresholds below s (linear between the tabulated points).
+  [[nodiscard]] double thr_cdf(double s) const {
+    const double pos = std::clamp(s, 0.0, 1.0) * kThresholds;
+    const auto i = std::min(static_cast<std::size_t>(pos), kThresholds - 1);
+    const double f = pos - static_cast<double>(i);
+    return thr_cum[i] + f * (thr_cum[i + 1] - thr_cum[i]);
+  }
 
   // Level bins: sum of squares over half hops of input.
   std::vector<double> lvl_sum;  // ring of completed bins
@@ -243,7 +290,10 @@ struct PitchTracker::Impl {
   // HMM.
   int n_bins = 0, jump = 0;
   double bin0_cents = 0;  // cents re 1 Hz of bin 0's centre
-  std::vector<double> kernel, delta, delta_new, obs;
+  std::vector<float> kernel, delta, delta_new, obs, arg_scratch;
+  std::vector<float> bin_index;  // 0, 1, 2, ... as floats
+  std::size_t best_voiced_bin = 0;  // voiced state with the best score after the latest step
+  std::vector<std::size_t> path_scratch;
   std::vector<std::int16_t> backptr;  // ring [ring_len][n_bins + 1]
   int settle = 0, ring_len = 0;
   std::vector<FrameRecord> records;
@@ -284,23 +334,23 @@ struct PitchTracker::Impl {
     {
       std::lock_guard<std::mutex> lock(fftw_planner_mutex());
       fft_in = fftw_alloc_real(static_cast<std::size_t>(nfft));
+      fft_out = fftw_alloc_real(static_cast<std::size_t>(nfft));
+      std::fill(fft_in, fft_in + nfft, 0.0);
       spec = fftw_alloc_complex(static_cast<std::size_t>(nfft / 2 + 1));
       plan_fwd = fftw_plan_dft_r2c_1d(nfft, fft_in, spec, FFTW_ESTIMATE);
-      plan_inv = fftw_plan_dft_c2r_1d(nfft, spec, fft_in, FFTW_ESTIMATE);
+      plan_inv = fftw_plan_dft_c2r_1d(nfft, spec, fft_out, FFTW_ESTIMATE);
     }
-    frame.resize(static_cast<std::size_t>(span));
     cum_sq.resize(static_cast<std::size_t>(span) + 1);
     diff.resize(static_cast<std::size_t>(tau_max) + 2);
     cmnd.resize(static_cast<std::size_t>(tau_max) + 2);
 
     // Threshold prior: Beta distribution over the CMNDF threshold (probabilistic YIN, Mauch & Dixon 2014).
-    double total = 0;
-    for (int i = 0; i < kThresholds; ++i) {
-      const double s = (i + 0.5) / kThresholds;
-      thr_weight[static_cast<std::size_t>(i)] = beta_pdf_unnormalized(s, 2.0, 6.0);  // mean 0.25
-      total += thr_weight[static_cast<std::size_t>(i)];
+    thr_cum[0] = 0;
+    for (std::size_t i = 0; i < kThresholds; ++i) {
+      const double s = (static_cast<double>(i) + 0.5) / kThresholds;
+      thr_cum[i + 1] = thr_cum[i] + beta_pdf_unnormalized(s, 2.0, 6.0);  // mean 0.25
     }
-    for (auto& w : thr_weight) w /= total;
+    for (auto& v : thr_cum) v /= thr_cum[kThresholds];
 
     lvl_sum.assign(1024, 0.0);
 
@@ -310,15 +360,20 @@ struct PitchTracker::Impl {
     // Pitch transition kernel: Gaussian in bins, peak 1, cut at the slope limit.
     kernel.resize(static_cast<std::size_t>(2 * jump + 1));
     const double sigma = std::max(1.0, jump / 2.5);
-    for (int d = -jump; d <= jump; ++d) kernel[static_cast<std::size_t>(d + jump)] = std::exp(-0.5 * (d / sigma) * (d / sigma));
+    for (int d = -jump; d <= jump; ++d)
+      kernel[static_cast<std::size_t>(d + jump)] = static_cast<float>(std::exp(-0.5 * (d / sigma) * (d / sigma)));
     const auto states = static_cast<std::size_t>(n_bins) + 1;
     delta.assign(states, 0);
     delta_new.assign(states, 0);
+    arg_scratch.assign(states, 0);
+    bin_index.resize(states);
+    for (std::size_t b = 0; b < states; ++b) bin_index[b] = static_cast<float>(b);
     obs.assign(states, 0);
     settle = static_cast<int>(std::lround(cfg.settle_ms / cfg.hop_ms));
     ring_len = settle + 2;
     backptr.assign(static_cast<std::size_t>(ring_len) * states, 0);
     records.assign(static_cast<std::size_t>(ring_len), FrameRecord{});
+    path_scratch.assign(static_cast<std::size_t>(ring_len), 0);
     reset();
   }
 
@@ -327,6 +382,7 @@ struct PitchTracker::Impl {
     fftw_destroy_plan(plan_fwd);
     fftw_destroy_plan(plan_inv);
     fftw_free(fft_in);
+    fftw_free(fft_out);
     fftw_free(spec);
     if (soxr) soxr_delete(soxr);
   }
@@ -339,6 +395,7 @@ struct PitchTracker::Impl {
     hum.reset();
     std::fill(buf.begin(), buf.end(), 0.0f);
     std::fill(hum_removed.begin(), hum_removed.end(), 0.0f);
+    last_hum_sample = -1;
     buf_len = static_cast<std::size_t>(half) + 1;  // zeros before time 0
     buf_start = -static_cast<std::int64_t>(buf_len);
     analysis_count = 0;
@@ -351,6 +408,7 @@ struct PitchTracker::Impl {
     next_frame = 0;
     next_settled = 0;
     hmm_started = false;
+    best_voiced_bin = 0;
     peak_db = -200;
   }
 
@@ -393,7 +451,9 @@ struct PitchTracker::Impl {
       for (std::size_t i = 0; i < take; ++i) {
         const double pre = hp.process(x[i]);
         const double v = cfg.hum_cancel ? hum.process(pre) : pre;
-        hum_removed[buf_len + i] = static_cast<float>(pre - v);
+        const auto removed = static_cast<float>(pre - v);
+        hum_removed[buf_len + i] = removed;
+        if (removed != 0.0f) last_hum_sample = buf_start + static_cast<std::int64_t>(buf_len + i);
         buf[buf_len + i] = static_cast<float>(lp2.process(lp1.process(v)));
       }
       buf_len += take;
@@ -454,17 +514,16 @@ struct PitchTracker::Impl {
     mean /= static_cast<double>(S);
     cum_sq[0] = 0;
     for (std::size_t i = 0; i < S; ++i) {
-      frame[i] = x[i] - mean;
-      cum_sq[i + 1] = cum_sq[i] + frame[i] * frame[i];
+      const double v = x[i] - mean;
+      fft_in[i] = v;
+      cum_sq[i + 1] = cum_sq[i] + v * v;
     }
-    std::fill(fft_in, fft_in + nfft, 0.0);
-    std::copy(frame.begin(), frame.end(), fft_in);
     fftw_execute(plan_fwd);
     for (int i = 0; i <= nfft / 2; ++i) {
       spec[i][0] = spec[i][0] * spec[i][0] + spec[i][1] * spec[i][1];
       spec[i][1] = 0;
     }
-    fftw_execute(plan_inv);  // fft_in[tau] = nfft * sum_j x_j x_{j+tau}
+    fftw_execute(plan_inv);  // fft_out[tau] = nfft * sum_j x_j x_{j+tau}
     const double total = cum_sq[S];
     const double scale = 1.0 / nfft;
     level_db = total > 1e-20 ? 10.0 * std::log10(2.0 * total / static_cast<double>(S)) : -200.0;
@@ -475,7 +534,7 @@ struct PitchTracker::Impl {
     for (std::size_t tau = 1; tau <= tmax; ++tau) {
       const double head = cum_sq[S - tau];
       const double tail = total - cum_sq[tau];
-      const double d = std::max(0.0, head + tail - 2.0 * fft_in[tau] * scale) / static_cast<double>(S - tau);
+      const double d = std::max(0.0, head + tail - 2.0 * fft_out[tau] * scale) / static_cast<double>(S - tau);
       diff[tau] = d;
       running += d;
       cmnd[tau] = running > 0 ? d * static_cast<double>(tau) / running : 1.0;
@@ -491,11 +550,18 @@ struct PitchTracker::Impl {
     const auto thi = static_cast<std::size_t>(tau_max);
     for (std::size_t t = tlo; t <= thi && n_dips < dips.size(); ++t) {
       if (cmnd[t] < cmnd[t - 1] && cmnd[t] <= cmnd[t + 1]) {
-        // Parabolic interpolation on the difference function for the period (YIN step 5), and on the
-        // normalised function for the dip's depth.
+        // Sub-sample period (YIN step 5). Near its minimum the difference function of a periodic signal
+        // is a raised cosine in the lag, d(t0 + x) = A - B cos(w (x - s)) with w = 2 pi / period; fitting
+        // that through the three samples around the dip is exact for a sinusoid at any sampling density
+        // and tends to parabolic interpolation when the period spans many samples.
         const double a = diff[t - 1], b = diff[t], c = diff[t + 1];
-        const double den = a - 2 * b + c;
-        const double shift = den > 0 ? std::clamp(0.5 * (a - c) / den, -0.5, 0.5) : 0.0;
+        const double den = a + c - 2 * b;
+        double shift = 0.0;
+        if (den > 0) {
+          const double w = 2 * kPi / static_cast<double>(t);
+          shift = std::atan((a - c) / den * (1 - std::cos(w)) / std::sin(w)) / w;
+          shift = std::clamp(shift, -0.5, 0.5);
+        }
         const double ca = cmnd[t - 1], cb = cmnd[t], cc = cmnd[t + 1];
         const double value = std::clamp(cb - 0.25 * (ca - cc) * shift, 0.0, cb);
         dips[n_dips++] = {static_cast<double>(t) + shift, value};
@@ -508,20 +574,18 @@ struct PitchTracker::Impl {
     for (std::size_t i = 1; i < n_dips; ++i)
       if (dips[i].value < dips[global].value) global = i;
     best_d = dips[global].value;
+    // For each threshold the first dip below it wins (YIN step 4). Dip j therefore wins every threshold
+    // between its own value and the lowest value of the dips before it: its probability is the prior's
+    // mass on that interval. Thresholds above no dip's value give the global minimum a small share.
     std::array<double, 64> prob{};
-    for (int i = 0; i < kThresholds; ++i) {
-      const double s = (i + 1.0) / kThresholds;
-      std::size_t pick = n_dips;
-      for (std::size_t j = 0; j < n_dips; ++j)
-        if (dips[j].value < s) {
-          pick = j;
-          break;
-        }
-      if (pick < n_dips)
-        prob[pick] += thr_weight[static_cast<std::size_t>(i)];
-      else
-        prob[global] += 0.01 * thr_weight[static_cast<std::size_t>(i)];  // as in probabilistic YIN
+    double lowest_before = 1.0;
+    for (std::size_t j = 0; j < n_dips; ++j) {
+      if (dips[j].value < lowest_before) {
+        prob[j] = thr_cdf(lowest_before) - thr_cdf(dips[j].value);
+        lowest_before = dips[j].value;
+      }
     }
+    prob[global] += 0.01 * thr_cdf(dips[global].value);  // as in probabilistic YIN
     // Keep the most probable candidates.
     for (std::size_t k = 0; k < kMaxCandidates; ++k) {
       std::size_t best = n_dips;
@@ -569,8 +633,10 @@ struct PitchTracker::Impl {
     auto sigmoid = [](double z) { return 1.0 / (1.0 + std::exp(-z)); };
     // What is left where the hum canceller removed far more than it left is hum residue, not a voice.
     double removed = 0;
-    const float* h = hum_removed.data() + (start - buf_start);
-    for (int i = 0; i < span; ++i) removed += static_cast<double>(h[i]) * h[i];
+    if (last_hum_sample >= start) {
+      const float* h = hum_removed.data() + (start - buf_start);
+      for (int i = 0; i < span; ++i) removed += static_cast<double>(h[i]) * h[i];
+    }
     const double removed_db = removed > 1e-20 ? 10.0 * std::log10(2.0 * removed / span) : -200.0;
     const double gate = sigmoid((level_db - cfg.level_floor_dbfs) / 2.0) *
                         sigmoid((level_db - (peak_db - kLevelGateBelowPeakDb)) / 3.0) *
@@ -578,13 +644,12 @@ struct PitchTracker::Impl {
     pv *= gate;
     pv = std::clamp(pv, 1e-4, 0.9999);
 
-    // Observation probabilities: voiced bins near each candidate share pv by candidate weight.
+    // Observation probabilities: pv near the likeliest candidate, less near the others in proportion to
+    // their probability, a small floor elsewhere; 1 - pv for the unvoiced state.
     const auto U = static_cast<std::size_t>(n_bins);
-    std::fill(obs.begin(), obs.end(), 0.0);
     double wsum = 0;
     for (std::size_t i = 0; i < rec.n_cand; ++i) wsum += rec.cand[i].prob;
-    const double floor_obs = pv * 1e-3 / n_bins;
-    for (std::size_t b = 0; b < U; ++b) obs[b] = floor_obs;
+    std::fill(obs.begin(), obs.begin() + static_cast<std::ptrdiff_t>(U), static_cast<float>(pv * 1e-3 / n_bins));
     double wmax = 0;
     for (std::size_t i = 0; i < rec.n_cand; ++i) wmax = std::max(wmax, static_cast<double>(rec.cand[i].prob));
     for (std::size_t i = 0; i < rec.n_cand && wmax > 0; ++i) {
@@ -595,22 +660,17 @@ struct PitchTracker::Impl {
       for (int b = lo; b <= hi; ++b) {
         const double dc = (b - cb) * kBinCents / 25.0;
         auto& o = obs[static_cast<std::size_t>(b)];
-        o = std::max(o, w * std::exp(-0.5 * dc * dc));
+        o = std::max(o, static_cast<float>(w * std::exp(-0.5 * dc * dc)));
       }
     }
-    obs[U] = 1.0 - pv;
+    obs[U] = static_cast<float>(1.0 - pv);
 
     hmm_step(k);
 
     // Live value: the best path ending at this frame (zero-lag max-product decoding).
-    double best_voiced = 0;
-    std::size_t best_bin = 0;
-    for (std::size_t b = 0; b < U; ++b)
-      if (delta[b] > best_voiced) {
-        best_voiced = delta[b];
-        best_bin = b;
-      }
-    rec.voicing = static_cast<float>(best_voiced / (best_voiced + delta[U]));
+    const float best_voiced = delta[best_voiced_bin];
+    const std::size_t best_bin = best_voiced_bin;
+    rec.voicing = best_voiced / (best_voiced + delta[U]);
     if (best_voiced > delta[U]) {
       const std::size_t c = nearest_candidate(rec, best_bin);
       rec.live_f0 = c < rec.n_cand ? rec.cand[c].f0_hz : static_cast<float>(f_of_bin(static_cast<double>(best_bin)));
@@ -628,7 +688,7 @@ struct PitchTracker::Impl {
     if (k - next_settled >= settle) settle_from(k, k - settle, sink);
   }
 
-  // The candidate nearest a path's bin (within 3 bins, 60 cents), or n_cand when there is none.
+  // The candidate nearest a path's bin (within 3 bins, 75 cents), or n_cand when there is none.
   [[nodiscard]] static std::size_t nearest_candidate(const FrameRecord& rec, std::size_t bin) {
     double best = 3.0;
     std::size_t pick = rec.n_cand;
@@ -645,6 +705,7 @@ struct PitchTracker::Impl {
   // One step of max-product decoding (Viterbi) with back pointers. Scores are balanced so that a steady
   // voiced path and a steady unvoiced path compare frame by frame as pv against 1 - pv: staying on a bin
   // costs nothing, moving costs the kernel's fall-off, switching voicing costs log(kVoicingSwitch).
+  // The max over predecessors runs tap by tap over all bins, which the compiler vectorises.
   void hmm_step(std::int64_t k) {
     const auto U = static_cast<std::size_t>(n_bins);
     std::int16_t* bp = backptr.data() + static_cast<std::size_t>(k % ring_len) * (U + 1);
@@ -655,58 +716,62 @@ struct PitchTracker::Impl {
       }
       hmm_started = true;
     } else {
-      double dv_max = 0;
-      std::size_t dv_arg = 0;
-      for (std::size_t b = 0; b < U; ++b)
-        if (delta[b] > dv_max) {
-          dv_max = delta[b];
-          dv_arg = b;
-        }
-      const double du_prev = delta[U];
-      const double stay = 1 - kVoicingSwitch;
-      const double from_unvoiced = du_prev * kVoicingSwitch;
-      const int J = jump;
-      for (int b = 0; b < n_bins; ++b) {
-        double best = -1;
-        int arg = b;
-        const int lo = std::max(0, b - J), hi = std::min(n_bins - 1, b + J);
-        for (int s = lo; s <= hi; ++s) {
-          const double v = kernel[static_cast<std::size_t>(s - b + J)] * delta[static_cast<std::size_t>(s)];
-          if (v > best) {
-            best = v;
-            arg = s;
-          }
-        }
-        const auto ub = static_cast<std::size_t>(b);
-        const double from_voiced = stay * best;
-        if (from_voiced >= from_unvoiced) {
-          delta_new[ub] = obs[ub] * from_voiced;
-          bp[ub] = static_cast<std::int16_t>(arg);
-        } else {
-          delta_new[ub] = obs[ub] * from_unvoiced;
-          bp[ub] = static_cast<std::int16_t>(U);
+      const float dv_max = delta[best_voiced_bin];
+      const auto dv_arg = static_cast<std::int16_t>(best_voiced_bin);
+      const float du_prev = delta[U];
+      const auto stay = static_cast<float>(1 - kVoicingSwitch);
+      const auto from_unvoiced = static_cast<float>(du_prev * kVoicingSwitch);
+      // best[b] = max over taps of kernel[d] * delta[b + d]; start with d = 0. The argmax is kept as a
+      // float (exact for bin numbers) so that value and index have the same width and vectorise together.
+      float* __restrict best = delta_new.data();
+      float* __restrict arg = arg_scratch.data();
+      for (std::size_t b = 0; b < U; ++b) {
+        best[b] = delta[b];
+        arg[b] = bin_index[b];
+      }
+      for (int d = -jump; d <= jump; ++d) {
+        if (d == 0) continue;
+        const float kd = kernel[static_cast<std::size_t>(d + jump)];
+        const auto fd = static_cast<float>(d);
+        const auto lo = static_cast<std::size_t>(std::max(0, -d));
+        const auto hi = static_cast<std::size_t>(std::min(n_bins, n_bins - d));
+        const float* __restrict src = delta.data() + d;
+        for (std::size_t b = lo; b < hi; ++b) {
+          // Branch-free select (mask times difference, exact for small integers) so that it vectorises.
+          const float v = kd * src[b];
+          const float better = static_cast<float>(v > best[b]);
+          arg[b] += better * (bin_index[b] + fd - arg[b]);
+          best[b] = std::max(v, best[b]);
         }
       }
-      const double uv_from_v = dv_max * kVoicingSwitch, uv_from_u = du_prev * stay;
-      if (uv_from_v > uv_from_u) {
-        delta_new[U] = obs[U] * uv_from_v;
-        bp[U] = static_cast<std::int16_t>(dv_arg);
-      } else {
-        delta_new[U] = obs[U] * uv_from_u;
-        bp[U] = static_cast<std::int16_t>(U);
+      const auto unvoiced_state = static_cast<float>(U);
+      for (std::size_t b = 0; b < U; ++b) {
+        const float from_voiced = stay * best[b];
+        const float voiced = static_cast<float>(from_voiced >= from_unvoiced);
+        best[b] = obs[b] * std::max(from_voiced, from_unvoiced);
+        arg[b] += (1.0f - voiced) * (unvoiced_state - arg[b]);
       }
+      for (std::size_t b = 0; b < U; ++b) bp[b] = static_cast<std::int16_t>(arg[b]);
+      const float uv_from_v = dv_max * static_cast<float>(kVoicingSwitch), uv_from_u = du_prev * stay;
+      delta_new[U] = obs[U] * std::max(uv_from_v, uv_from_u);
+      bp[U] = uv_from_v > uv_from_u ? dv_arg : static_cast<std::int16_t>(U);
       delta.swap(delta_new);
     }
-    const double dmax = *std::max_element(delta.begin(), delta.end());
-    for (auto& d : delta) d = dmax > 0 ? d / dmax : 1.0;
+    // One pass for the best voiced state, then scale so that the best state scores 1.
+    best_voiced_bin = 0;
+    for (std::size_t b = 1; b < U; ++b)
+      if (delta[b] > delta[best_voiced_bin]) best_voiced_bin = b;
+    const float dmax = std::max(delta[best_voiced_bin], delta[U]);
+    const float inv = dmax > 0 ? 1.0f / dmax : 1.0f;
+    for (auto& d : delta) d = dmax > 0 ? d * inv : 1.0f;
   }
 
   // Trace back from the best state at frame `now` and emit settled frames next_settled..upto.
   void settle_from(std::int64_t now, std::int64_t upto, FrameSink& sink) {
     const auto U = static_cast<std::size_t>(n_bins);
-    std::size_t state = static_cast<std::size_t>(std::max_element(delta.begin(), delta.end()) - delta.begin());
+    std::size_t state = delta[best_voiced_bin] > delta[U] ? best_voiced_bin : U;
     // Walk back from `now` to `upto`, then emit upto, and further back only if several are pending (flush).
-    std::array<std::size_t, 1024> path{};
+    std::vector<std::size_t>& path = path_scratch;
     const std::int64_t first = next_settled;
     std::int64_t t = now;
     for (; t > upto; --t) state = static_cast<std::size_t>(backptr[static_cast<std::size_t>(t % ring_len) * (U + 1) + state]);

@@ -8,7 +8,7 @@
 //   input -> [resample to the analysis rate, libsoxr] -> DC/rumble high-pass -> mains hum canceller
 //         -> low-pass (analysis band) -> per hop: YIN difference function through an FFT (FFTW),
 //            candidate periods with probabilities (a distribution over thresholds, as probabilistic YIN)
-//         -> HMM over 20-cent pitch bins plus an unvoiced state, decoded by max-product (Viterbi): the best
+//         -> HMM over 25-cent pitch bins plus an unvoiced state, decoded by max-product (Viterbi): the best
 //            path ending at the newest frame gives the live value at once (zero lag), the same path
 //            traced back `settle_ms` gives the settled value (fixed-lag Viterbi).
 // Frames are the same whatever the block sizes (tested).
