@@ -5,14 +5,13 @@
 // process()/flush() do no allocation of their own (libsoxr keeps its own buffers, made on creation).
 #include "pitchwire/dsp/pitch_tracker.h"
 
-#include <fftw3.h>
+#include <kiss_fftr.h>
 #include <soxr.h>
 
 #include <algorithm>
 #include <array>
 #include <cmath>
 #include <complex>
-#include <mutex>
 #include <numeric>
 #include <stdexcept>
 #include <vector>
@@ -32,12 +31,6 @@ constexpr std::size_t kMaxCandidates = 8;
 constexpr std::size_t kThresholds = 100;     // resolution of the threshold prior's table
 constexpr double kLevelGateBelowPeakDb = 22.0;
 constexpr double kPeakDecayDbPerS = 3.0;
-
-// FFTW's planner is not thread-safe; plans are made in constructors only, under this mutex.
-std::mutex& fftw_planner_mutex() {
-  static std::mutex m;
-  return m;
-}
 
 // Second-order section, transposed direct form II (RBJ cookbook coefficients, common practice).
 struct Biquad {
@@ -262,10 +255,11 @@ struct PitchTracker::Impl {
   std::int64_t analysis_count = 0;  // analysis samples produced so far (excluding the initial padding)
 
   // FFT scratch.
-  double* fft_in = nullptr;   // frame in the first span samples, zeros after (set once)
-  double* fft_out = nullptr;  // autocorrelation
-  fftw_complex* spec = nullptr;
-  fftw_plan plan_fwd = nullptr, plan_inv = nullptr;
+  // FFT (KissFFT, real transforms): set up in microseconds, so a short file costs no planning time.
+  kiss_fftr_cfg fft_fwd = nullptr, fft_inv = nullptr;
+  std::vector<float> fft_in;   // frame in the first span samples, zeros after (set once)
+  std::vector<float> fft_out;  // autocorrelation times nfft
+  std::vector<kiss_fft_cpx> spec;
   std::vector<double> cum_sq, diff, cmnd;
 
   // Threshold prior: its cumulative distribution at 0, 1/kThresholds, ..., 1.
@@ -331,15 +325,12 @@ struct PitchTracker::Impl {
     buf.assign(static_cast<std::size_t>(span) + 8192, 0.0f);
     hum_removed.assign(buf.size(), 0.0f);
 
-    {
-      std::lock_guard<std::mutex> lock(fftw_planner_mutex());
-      fft_in = fftw_alloc_real(static_cast<std::size_t>(nfft));
-      fft_out = fftw_alloc_real(static_cast<std::size_t>(nfft));
-      std::fill(fft_in, fft_in + nfft, 0.0);
-      spec = fftw_alloc_complex(static_cast<std::size_t>(nfft / 2 + 1));
-      plan_fwd = fftw_plan_dft_r2c_1d(nfft, fft_in, spec, FFTW_ESTIMATE);
-      plan_inv = fftw_plan_dft_c2r_1d(nfft, spec, fft_out, FFTW_ESTIMATE);
-    }
+    fft_fwd = kiss_fftr_alloc(nfft, 0, nullptr, nullptr);
+    fft_inv = kiss_fftr_alloc(nfft, 1, nullptr, nullptr);
+    if (!fft_fwd || !fft_inv) throw std::runtime_error("FFT setup failed");
+    fft_in.assign(static_cast<std::size_t>(nfft), 0.0f);
+    fft_out.assign(static_cast<std::size_t>(nfft), 0.0f);
+    spec.assign(static_cast<std::size_t>(nfft / 2 + 1), kiss_fft_cpx{});
     cum_sq.resize(static_cast<std::size_t>(span) + 1);
     diff.resize(static_cast<std::size_t>(tau_max) + 2);
     cmnd.resize(static_cast<std::size_t>(tau_max) + 2);
@@ -378,12 +369,8 @@ struct PitchTracker::Impl {
   }
 
   ~Impl() {
-    std::lock_guard<std::mutex> lock(fftw_planner_mutex());
-    fftw_destroy_plan(plan_fwd);
-    fftw_destroy_plan(plan_inv);
-    fftw_free(fft_in);
-    fftw_free(fft_out);
-    fftw_free(spec);
+    kiss_fftr_free(fft_fwd);
+    kiss_fftr_free(fft_inv);
     if (soxr) soxr_delete(soxr);
   }
 
@@ -515,15 +502,15 @@ struct PitchTracker::Impl {
     cum_sq[0] = 0;
     for (std::size_t i = 0; i < S; ++i) {
       const double v = x[i] - mean;
-      fft_in[i] = v;
+      fft_in[i] = static_cast<float>(v);
       cum_sq[i + 1] = cum_sq[i] + v * v;
     }
-    fftw_execute(plan_fwd);
-    for (int i = 0; i <= nfft / 2; ++i) {
-      spec[i][0] = spec[i][0] * spec[i][0] + spec[i][1] * spec[i][1];
-      spec[i][1] = 0;
+    kiss_fftr(fft_fwd, fft_in.data(), spec.data());
+    for (auto& c : spec) {
+      c.r = c.r * c.r + c.i * c.i;
+      c.i = 0;
     }
-    fftw_execute(plan_inv);  // fft_out[tau] = nfft * sum_j x_j x_{j+tau}
+    kiss_fftri(fft_inv, spec.data(), fft_out.data());  // fft_out[tau] = nfft * sum_j x_j x_{j+tau}
     const double total = cum_sq[S];
     const double scale = 1.0 / nfft;
     level_db = total > 1e-20 ? 10.0 * std::log10(2.0 * total / static_cast<double>(S)) : -200.0;
@@ -706,7 +693,7 @@ struct PitchTracker::Impl {
   // voiced path and a steady unvoiced path compare frame by frame as pv against 1 - pv: staying on a bin
   // costs nothing, moving costs the kernel's fall-off, switching voicing costs log(kVoicingSwitch).
   // The max over predecessors runs tap by tap over all bins, which the compiler vectorises.
-  void hmm_step(std::int64_t k) {
+  __attribute__((target_clones("avx2", "default"))) void hmm_step(std::int64_t k) {
     const auto U = static_cast<std::size_t>(n_bins);
     std::int16_t* bp = backptr.data() + static_cast<std::size_t>(k % ring_len) * (U + 1);
     if (!hmm_started) {

@@ -6,7 +6,7 @@
 //
 // Pipeline per input block (any size, 1..8192 samples or more):
 //   input -> [resample to the analysis rate, libsoxr] -> DC/rumble high-pass -> mains hum canceller
-//         -> low-pass (analysis band) -> per hop: YIN difference function through an FFT (FFTW),
+//         -> low-pass (analysis band) -> per hop: YIN difference function through an FFT (KissFFT),
 //            candidate periods with probabilities (a distribution over thresholds, as probabilistic YIN)
 //         -> HMM over 25-cent pitch bins plus an unvoiced state, decoded by max-product (Viterbi): the best
 //            path ending at the newest frame gives the live value at once (zero lag), the same path
