@@ -31,6 +31,9 @@ constexpr std::size_t kMaxCandidates = 8;
 constexpr std::size_t kThresholds = 100;     // resolution of the threshold prior's table
 constexpr double kLevelGateBelowPeakDb = 22.0;
 constexpr double kPeakDecayDbPerS = 3.0;
+constexpr double kPriorA = 2.0, kPriorB = 18.0;  // threshold prior Beta(2, 18): mean 0.1 (YIN's threshold)
+constexpr double kVoicedDip = 0.35;              // deepest dip value at which voicing evidence is 1/2
+constexpr double kVoicedDipWidth = 0.05;         // and how fast the evidence changes around it
 
 // Second-order section, transposed direct form II (RBJ cookbook coefficients, common practice).
 struct Biquad {
@@ -110,17 +113,15 @@ class HumCanceller {
       if (s.active) est_active += est;
     }
     const double e = x - est_all;
-    const double mu = gear(n_);
-    power_ += 0.5 * mu * (x * x - power_);  // mean square of the input, same averaging as the estimates
-    ++n_;
+    power_ += 0.5 * mu_ * (x * x - power_);  // mean square of the input, same averaging as the estimates
     for (Series& s : series_) {
       const std::size_t n = s.active ? s.n : 1;
-      const double mu_h = s.active ? gear(n_ - s.active_since) : mu;
-      s.amp_re[0] += mu * e * s.osc_re[0];
-      s.amp_im[0] -= mu * e * s.osc_im[0];
+      const double ef = mu_ * e, eh = s.mu * e;
+      s.amp_re[0] += ef * s.osc_re[0];
+      s.amp_im[0] -= ef * s.osc_im[0];
       for (std::size_t h = 1; h < n; ++h) {
-        s.amp_re[h] += mu_h * e * s.osc_re[h];
-        s.amp_im[h] -= mu_h * e * s.osc_im[h];
+        s.amp_re[h] += eh * s.osc_re[h];
+        s.amp_im[h] -= eh * s.osc_im[h];
       }
       for (std::size_t h = 0; h < n; ++h) {  // osc *= rot
         const double re = s.osc_re[h] * s.rot_re[h] - s.osc_im[h] * s.rot_im[h];
@@ -128,7 +129,7 @@ class HumCanceller {
         s.osc_re[h] = re;
       }
     }
-    if ((n_ & 63) == 0) update_state();
+    if ((++n_ & 63) == 0) update_state();
     return x - est_active;
   }
 
@@ -144,9 +145,11 @@ class HumCanceller {
       s.amp_im.fill(0.0);
       s.active = false;
       s.active_since = 0;
+      s.mu = 0;
     }
     n_ = 0;
     power_ = 0;
+    mu_ = gear(0);
   }
 
  private:
@@ -156,6 +159,7 @@ class HumCanceller {
     std::size_t n = 0;
     bool active = false;
     std::int64_t active_since = 0;
+    double mu = 0;  // step size of the harmonics' estimates
   };
 
   [[nodiscard]] double gear(std::int64_t n) const { return std::max(mu_min_, 2.0 / (static_cast<double>(n) + n0_)); }
@@ -184,20 +188,24 @@ class HumCanceller {
         s.active_since = n_;
       }
       s.active = on;
+      s.mu = on ? gear(n_ - s.active_since) : 0.0;
     }
+    mu_ = gear(n_);  // step sizes change slowly: they are updated every 64 samples
   }
 
   std::array<Series, 2> series_{};
   double mu_min_ = 0, n0_ = 1;
   double power_ = 0;
+  double mu_ = 0;  // step size of the fundamentals' estimates and of the power average
   std::int64_t n_ = 0;
   std::int64_t settle_samples_ = 0;
 };
 
 struct Candidate {
   float f0_hz = 0;
-  float prob = 0;
-  float bin = 0;  // fractional HMM bin
+  float prob = 0;  // share of the threshold prior that picks this dip
+  float bin = 0;   // fractional HMM bin
+  float dip = 1;   // value of the normalised difference function at the dip
 };
 
 // Everything remembered about a frame until its settled value is out.
@@ -339,7 +347,7 @@ struct PitchTracker::Impl {
     thr_cum[0] = 0;
     for (std::size_t i = 0; i < kThresholds; ++i) {
       const double s = (static_cast<double>(i) + 0.5) / kThresholds;
-      thr_cum[i + 1] = thr_cum[i] + beta_pdf_unnormalized(s, 2.0, 6.0);  // mean 0.25
+      thr_cum[i + 1] = thr_cum[i] + beta_pdf_unnormalized(s, kPriorA, kPriorB);
     }
     for (auto& v : thr_cum) v /= thr_cum[kThresholds];
 
@@ -581,7 +589,8 @@ struct PitchTracker::Impl {
       if (best == n_dips) break;
       const double f = fa / dips[best].tau;
       if (f >= cfg.f0_min_hz * 0.97 && f <= cfg.f0_max_hz * 1.03) {
-        out[n++] = {static_cast<float>(f), static_cast<float>(prob[best]), static_cast<float>(bin_of(f))};
+        out[n++] = {static_cast<float>(f), static_cast<float>(prob[best]), static_cast<float>(bin_of(f)),
+                    static_cast<float>(dips[best].value)};
       }
       prob[best] = 0;
     }
@@ -601,23 +610,26 @@ struct PitchTracker::Impl {
 
     // Voicing evidence: candidate probability mass, gated by level (absolute floor and relative to the
     // recent peak of periodic frames, so that a far quieter background is not taken for the voice).
-    double pv = 0;
-    for (std::size_t i = 0; i < rec.n_cand; ++i) pv += rec.cand[i].prob;
+    // Periodicity evidence: how deep the deepest candidate dip is. Candidate probabilities (which period)
+    // and this evidence (whether periodic at all) are kept apart, so that noise that makes every dip
+    // shallower lowers the voicing evidence without handing the frame to a wrong period.
     // Start-up guard: until the hum canceller has converged, a periodicity at the mains frequency itself
     // (50 or 60 Hz within 1.5 %) is not trusted.
-    if (cfg.hum_cancel && hum.settling()) {
-      pv = 0;
-      for (std::size_t i = 0; i < rec.n_cand; ++i) {
-        const double f = rec.cand[i].f0_hz;
-        if (std::abs(f / 50.0 - 1.0) < 0.015 || std::abs(f / 60.0 - 1.0) < 0.015) rec.cand[i].prob *= 0.02f;
-        pv += rec.cand[i].prob;
+    const bool guard = cfg.hum_cancel && hum.settling();
+    double deepest = 1.0;
+    for (std::size_t i = 0; i < rec.n_cand; ++i) {
+      const double f = rec.cand[i].f0_hz;
+      if (guard && (std::abs(f / 50.0 - 1.0) < 0.015 || std::abs(f / 60.0 - 1.0) < 0.015)) {
+        rec.cand[i].prob *= 0.02f;
+        continue;
       }
+      deepest = std::min(deepest, static_cast<double>(rec.cand[i].dip));
     }
-    pv = std::min(pv, 0.99);
+    auto sigmoid = [](double z) { return 1.0 / (1.0 + std::exp(-z)); };
+    double pv = sigmoid((kVoicedDip - deepest) / kVoicedDipWidth);
     const double hop_s = cfg.hop_ms * 1e-3;
     peak_db = std::max(peak_db - kPeakDecayDbPerS * hop_s, -200.0);
     if (best_d < 0.15 && level_db > cfg.level_floor_dbfs) peak_db = std::max(peak_db, level_db);
-    auto sigmoid = [](double z) { return 1.0 / (1.0 + std::exp(-z)); };
     // What is left where the hum canceller removed far more than it left is hum residue, not a voice.
     double removed = 0;
     if (last_hum_sample >= start) {
