@@ -32,8 +32,10 @@ constexpr std::size_t kThresholds = 100;     // resolution of the threshold prio
 constexpr double kLevelGateBelowPeakDb = 22.0;
 constexpr double kPeakDecayDbPerS = 3.0;
 constexpr double kPriorA = 2.0, kPriorB = 18.0;  // threshold prior Beta(2, 18): mean 0.1 (YIN's threshold)
-constexpr double kVoicedDip = 0.35;              // deepest dip value at which voicing evidence is 1/2
+constexpr double kVoicedDip = 0.45;              // deepest dip value at which voicing evidence is 1/2
 constexpr double kVoicedDipWidth = 0.05;         // and how fast the evidence changes around it
+constexpr double kCentreBelowWindowDb = 10.0;    // a frame whose middle is this much quieter than its
+                                                 // window sits in a pause next to a voiced stretch
 
 // Second-order section, transposed direct form II (RBJ cookbook coefficients, common practice).
 struct Biquad {
@@ -502,7 +504,8 @@ struct PitchTracker::Impl {
   // The difference function is the windowed form d(tau) = sum_{j < S - tau} (x_j - x_{j+tau})^2 over one
   // window of S samples centred on the frame time, divided by its S - tau terms: every lag then describes
   // the same stretch of signal, so the frame time is the window centre whatever the period.
-  std::size_t yin_candidates(const float* x, std::array<Candidate, kMaxCandidates>& out, double& level_db, double& best_d) {
+  std::size_t yin_candidates(const float* x, std::array<Candidate, kMaxCandidates>& out, double& level_db, double& best_d,
+                             double& centre_db) {
     const auto S = static_cast<std::size_t>(span);
     double mean = 0;
     for (std::size_t i = 0; i < S; ++i) mean += x[i];
@@ -522,6 +525,13 @@ struct PitchTracker::Impl {
     const double total = cum_sq[S];
     const double scale = 1.0 / nfft;
     level_db = total > 1e-20 ? 10.0 * std::log10(2.0 * total / static_cast<double>(S)) : -200.0;
+    {
+      // Level of the middle of the window (+-1 hop): where the frame's time actually is.
+      const auto h = static_cast<std::size_t>(std::max(1.0, hop_a));
+      const std::size_t mid = S / 2, lo = mid > h ? mid - h : 0, hi = std::min(S, mid + h);
+      const double e = cum_sq[hi] - cum_sq[lo];
+      centre_db = e > 1e-20 ? 10.0 * std::log10(2.0 * e / static_cast<double>(hi - lo)) : -200.0;
+    }
     const auto tmax = static_cast<std::size_t>(tau_max) + 1;
     diff[0] = 0;
     cmnd[0] = 1;
@@ -605,8 +615,8 @@ struct PitchTracker::Impl {
     rec.index = k;
     rec.time_s = static_cast<double>(frame_centre(k)) / fa;
     rec.level_dbfs = frame_level_dbfs(k);
-    double level_db = -200, best_d = 1;
-    rec.n_cand = yin_candidates(x, rec.cand, level_db, best_d);
+    double level_db = -200, best_d = 1, centre_db = -200;
+    rec.n_cand = yin_candidates(x, rec.cand, level_db, best_d, centre_db);
 
     // Voicing evidence: candidate probability mass, gated by level (absolute floor and relative to the
     // recent peak of periodic frames, so that a far quieter background is not taken for the voice).
@@ -631,6 +641,8 @@ struct PitchTracker::Impl {
     peak_db = std::max(peak_db - kPeakDecayDbPerS * hop_s, -200.0);
     if (best_d < 0.15 && level_db > cfg.level_floor_dbfs) peak_db = std::max(peak_db, level_db);
     // What is left where the hum canceller removed far more than it left is hum residue, not a voice.
+    // A frame whose middle is far quieter than its whole window only borrows periodicity from a voiced
+    // stretch next to it (the window reaches 20 ms either side): that places voicing boundaries to a hop.
     double removed = 0;
     if (last_hum_sample >= start) {
       const float* h = hum_removed.data() + (start - buf_start);
@@ -639,7 +651,8 @@ struct PitchTracker::Impl {
     const double removed_db = removed > 1e-20 ? 10.0 * std::log10(2.0 * removed / span) : -200.0;
     const double gate = sigmoid((level_db - cfg.level_floor_dbfs) / 2.0) *
                         sigmoid((level_db - (peak_db - kLevelGateBelowPeakDb)) / 3.0) *
-                        sigmoid((level_db - (removed_db - 6.0)) / 2.0);
+                        sigmoid((level_db - (removed_db - 6.0)) / 2.0) *
+                        sigmoid((centre_db - (level_db - kCentreBelowWindowDb)) / 2.0);
     pv *= gate;
     pv = std::clamp(pv, 1e-4, 0.9999);
 

@@ -34,7 +34,7 @@ Collect run(const std::vector<float>& x, double fs, TrackerConfig cfg = {}) {
 
 std::vector<float> sine(double fs, double f, double seconds, double amp = 0.5) {
   std::vector<float> x(static_cast<std::size_t>(fs * seconds));
-  for (std::size_t i = 0; i < x.size(); ++i) x[i] = static_cast<float>(amp * std::sin(2 * kPi * f * i / fs));
+  for (std::size_t i = 0; i < x.size(); ++i) x[i] = static_cast<float>(amp * std::sin(2 * kPi * f * static_cast<double>(i) / fs));
   return x;
 }
 
@@ -62,7 +62,7 @@ TEST(PitchTracker, PulseTrainWithA6p6msPeriodReads151p5Hz) {
     // Band-limited pulses: a sum of cosine harmonics below 4 kHz, so every rate sees the same signal.
     for (std::size_t i = 0; i < x.size(); ++i) {
       double v = 0;
-      for (int h = 1; h * (1.0 / period) < 4000.0; ++h) v += std::cos(2 * kPi * h * i / (period * fs));
+      for (int h = 1; h * (1.0 / period) < 4000.0; ++h) v += std::cos(2 * kPi * h * static_cast<double>(i) / (period * fs));
       x[i] = static_cast<float>(0.02 * v);
     }
     const auto frames = interior(run(x, fs).settled, 1.0);
