@@ -581,7 +581,7 @@ struct PitchTracker::Impl {
     best_d = dips[global].value;
     // For each threshold the first dip below it wins (YIN step 4). Dip j therefore wins every threshold
     // between its own value and the lowest value of the dips before it: its probability is the prior's
-    // mass on that interval. Thresholds above no dip's value give the global minimum a small share.
+    // mass on that interval.
     std::array<double, 64> prob{};
     double lowest_before = 1.0;
     for (std::size_t j = 0; j < n_dips; ++j) {
@@ -590,7 +590,18 @@ struct PitchTracker::Impl {
         lowest_before = dips[j].value;
       }
     }
-    prob[global] += 0.01 * thr_cdf(dips[global].value);  // as in probabilistic YIN
+    // Thresholds below every dip: probabilistic YIN gives the global minimum a 0.01 share. When the
+    // signal is noisy every dip is shallow and the global minimum falls on the period or on a multiple
+    // of it almost by chance; the earliest dip nearly as deep (within a tenth of the remaining range)
+    // takes that share instead, as YIN's own rule prefers the shortest lag.
+    std::size_t fallback = global;
+    const double tolerance = dips[global].value + 0.1 * (1.0 - dips[global].value);
+    for (std::size_t j = 0; j < global; ++j)
+      if (dips[j].value <= tolerance) {
+        fallback = j;
+        break;
+      }
+    prob[fallback] += 0.01 * thr_cdf(dips[global].value);
     // Keep the most probable candidates.
     for (std::size_t k = 0; k < kMaxCandidates; ++k) {
       std::size_t best = n_dips;
