@@ -105,7 +105,8 @@ def main(argv: list[str] | None = None) -> int:
         truth = truths[m["name"]]
         try:
             if kind == "pitchwire":
-                return m["name"], {n: rt.score(t, truth) for n, t in rt.run_pitchwire(a.pitchwire, wav, a.hop_ms).items()}
+                tracks = rt.run_pitchwire(a.pitchwire, wav, a.hop_ms)
+                return m["name"], {n: rt.score(t, truth) for n, t in tracks.items()}
             d = tempfile.mkdtemp(dir=work)
             try:
                 return m["name"], {kind: rt.score(rt.run_reference(kind, wav, a.hop_ms, tmpdir=d), truth)}

@@ -138,8 +138,8 @@ void BM_PitchTrackerHop(benchmark::State& state) {
       benchmark::Counter(1.0, benchmark::Counter::kIsIterationInvariantRate | benchmark::Counter::kInvert);
   state.counters["rtf"] = benchmark::Counter(
       hop_seconds, benchmark::Counter::kIsIterationInvariantRate | benchmark::Counter::kInvert);
-  state.counters["frames"] = benchmark::Counter(
-      static_cast<double>(sink.frames) / static_cast<double>(std::max<benchmark::IterationCount>(1, state.iterations())));
+  const auto iterations = std::max<benchmark::IterationCount>(1, state.iterations());
+  state.counters["frames"] = benchmark::Counter(static_cast<double>(sink.frames) / static_cast<double>(iterations));
   state.SetLabel("rate " + std::to_string(static_cast<int>(rate)) + " Hz, hop 5 ms");
 }
 
