@@ -868,8 +868,11 @@ struct PitchTracker::Impl {
 
   void flush(FrameSink& sink) {
     const std::int64_t total = input_count;
-    const double duration = static_cast<double>(total) / fs;
-    const auto last = static_cast<std::int64_t>(std::floor(duration / (cfg.hop_ms * 1e-3) + 1e-9));
+    // The last frame is the last hop whose centre lies within the input (time <= duration). Samples over
+    // samples per hop: a 35.2 s input at 16 kHz with 5 ms hops has frames 0..7040, whereas 35.2 / 0.005
+    // in floating point is just under 7040.
+    const double hop_samples = cfg.hop_ms * 1e-3 * fs;
+    const auto last = static_cast<std::int64_t>(std::floor(static_cast<double>(total) / hop_samples + 1e-9));
     // Close the level bins of the last frame with silence.
     while (lvl_bin <= 2 * last + 1) level_push(0.0);
     input_count = total;

@@ -33,7 +33,7 @@ Collect run(const std::vector<float>& x, double fs, TrackerConfig cfg = {}) {
 }
 
 std::vector<float> sine(double fs, double f, double seconds, double amp = 0.5) {
-  std::vector<float> x(static_cast<std::size_t>(fs * seconds));
+  std::vector<float> x(static_cast<std::size_t>(std::llround(fs * seconds)));
   for (std::size_t i = 0; i < x.size(); ++i) x[i] = static_cast<float>(amp * std::sin(2 * kPi * f * static_cast<double>(i) / fs));
   return x;
 }
@@ -151,13 +151,18 @@ TEST(PitchTracker, GlideIsFollowedWithoutOctaveJumps) {
 }
 
 TEST(PitchTracker, FrameTimesAreWindowCentresAndEveryHopWithinTheInputGetsAFrame) {
-  for (double hop : {2.5, 5.0, 10.0}) {
-    SCOPED_TRACE(hop);
+  // Frames are centred on k * hop for every k with k * hop <= duration, counted in samples: 48 kHz makes
+  // every hop a whole number of samples. 1.2 s is a whole number of hops (1.2 / 0.005 is 239.999... in
+  // floating point, so the count must not come from a division of seconds).
+  for (const auto& [hop, samples] : std::vector<std::pair<double, std::size_t>>{
+           {2.5, 48144}, {5.0, 48144}, {10.0, 48144}, {5.0, 57600}, {2.5, 57600}}) {
+    SCOPED_TRACE(testing::Message() << hop << " ms, " << samples << " samples");
     TrackerConfig cfg;
     cfg.hop_ms = hop;
-    const double fs = 48000, seconds = 1.003;
-    const auto out = run(sine(fs, 200, seconds), fs, cfg);
-    const auto expected = static_cast<std::size_t>(std::floor(seconds / (hop * 1e-3))) + 1;
+    const double fs = 48000;
+    const auto hop_samples = static_cast<std::size_t>(hop * 48);
+    const auto out = run(sine(fs, 200, static_cast<double>(samples) / fs), fs, cfg);
+    const std::size_t expected = samples / hop_samples + 1;
     ASSERT_EQ(out.live.size(), expected);
     ASSERT_EQ(out.settled.size(), expected);
     for (std::size_t k = 0; k < expected; ++k) {
