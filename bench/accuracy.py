@@ -7,7 +7,9 @@
 Scores pitchwire's settled and live columns and SPTK RAPT, SWIPE', aubio yin and yinfft with the same
 metrics (GPE, VDE, FPE, RPA: see reftrackers.py and bench/README.md) and prints one markdown table: pooled
 over all files (frames pooled), then per condition (noise kind x SNR, and level) and per kind of material.
-With --check, exits 1 unless pitchwire meets the bars (BAR_* below; each is printed with PASS or FAIL).
+With --check, exits 1 unless pitchwire meets every bar; the bars are printed at the end, each with PASS or
+FAIL (settled RPA >= 0.97, GPE <= 1 %, VDE <= 3 %; live RPA >= 0.95; settled RPA and GPE better than every
+reference; best diagnostic shift of settled and live within one hop of 0).
 """
 from __future__ import annotations
 
