@@ -321,7 +321,11 @@ struct PitchTracker::Impl {
     if (fa != fs) {
       soxr_error_t err = nullptr;
       const soxr_io_spec_t io = soxr_io_spec(SOXR_FLOAT32_I, SOXR_FLOAT32_I);
-      const soxr_quality_spec_t q = soxr_quality_spec(SOXR_HQ, 0);
+      // 16-bit precision, linear phase, and a pass band that ends at 2 kHz: the analysis band ends at
+      // 1.8 kHz, so a wide pass band would only lengthen the filter.
+      soxr_quality_spec_t q = soxr_quality_spec(SOXR_LQ, 0);
+      q.passband_end = 0.5;
+      q.stopband_begin = 1.0;
       soxr = soxr_create(fs, fa, 1, &err, &io, &q, nullptr);
       if (err) throw std::runtime_error(std::string("resampler: ") + err);
       rs_out.resize(4096);
