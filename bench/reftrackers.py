@@ -5,7 +5,7 @@ Runs `pitchwire analyze` and the reference trackers (SPTK RAPT and SWIPE', aubio
 file, puts every frame on the same clock (the centre of the analysis frame, seconds from the file start),
 and scores tracks against a ground-truth F0 contour.
 
-Metric definitions (see /work/shared/REFERENCES.md; Rabiner et al. 1976; Chu & Alwan 2009):
+Metric definitions (Rabiner et al. 1976; Chu & Alwan 2009):
   GPE  gross pitch error: frames voiced in both with |f_est/f_ref - 1| > 20 %, over frames voiced in both.
   VDE  voicing decision error: frames whose voiced call differs, over all frames.
   FPE  fine pitch error: standard deviation of the error in cents over voiced-in-both non-gross frames

@@ -58,7 +58,7 @@ struct PhoneInfo {
 };
 
 // Vowels: Peterson & Barney (1952) averages for men. [ɑ] 730/1090/2440, [i] 270/2290/3010 and [u]
-// 300/870/2240 as read (REFERENCES.md); the other seven vowels (memory). Sonorants and voiced
+// 300/870/2240 as read (Peterson & Barney 1952); the other seven vowels (memory). Sonorants and voiced
 // obstruents: rough murmur and voice-bar formants (our choice, not from a source; the cascade has no
 // anti-resonances for nasals).
 constexpr std::array<PhoneInfo, 30> kPhones = {{

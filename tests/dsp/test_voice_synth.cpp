@@ -1,7 +1,7 @@
 // Tests of the test-voice synthesizer: checks by construction that the audio and its truth agree.
 // Sources: Rosenberg (1971) and Liljencrants & Fant (1985) glottal pulses, Klatt (1980) resonators,
 // Peterson & Barney (1952) formants and F0 averages, Baken & Orlikoff (2000) jitter definition,
-// Paul Kellet's pink filter. See /work/shared/REFERENCES.md.
+// Paul Kellet's pink filter.
 #include "pitchwire/dsp/voice_synth.h"
 
 #include <gtest/gtest.h>

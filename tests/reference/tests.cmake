@@ -55,7 +55,7 @@ function(pitchwire_reference_tests)
     COMMAND "${PITCHWIRE_REFERENCE_PYTHON}" "${src}/bench/accuracy.py"
             --pitchwire $<TARGET_FILE:pitchwire>
             --make-corpus $<TARGET_FILE:pitchwire-corpus> --quick
-            --corpus "${work}/corpus-quick" --jobs 2 --check --out "${work}/accuracy-quick.md")
+            --corpus "${work}/corpus-quick" --jobs 2 --check-floors --out "${work}/accuracy-quick.md")
   set_tests_properties(reference.espeak_vs_rapt_quick PROPERTIES LABELS reference TIMEOUT 600)
   set_tests_properties(reference.accuracy_quick PROPERTIES LABELS reference TIMEOUT 1200)
   # Both run two tracker processes at once: never alongside each other on a 2-core machine.
