@@ -214,6 +214,54 @@ TEST(PitchwireAnalyze, JsonLinesParse) {
   }
 }
 
+TEST(PitchwireAnalyze, SmoothingColumnsOnlyWhenAsked) {
+  TempDir dir;
+  const auto file = dir / "gap.wav";
+  // 0.4 s of 200 Hz, 30 ms of silence, 0.4 s of 200 Hz at 16 kHz.
+  std::vector<float> x = sine16(13280, 200.0, 16000.0);
+  for (std::size_t i = 6400; i < 6880; ++i) x[i] = 0.0f;
+  write_sound(file, kWav16, 16000, 1, x);
+
+  const Result plain = analyze(dir, file);
+  ASSERT_EQ(plain.exit_code, 0) << plain.err;
+  EXPECT_EQ(lines_of(plain.out).at(0), kCsvHeader);
+
+  const Result smooth = analyze(dir, file, "--smooth");
+  ASSERT_EQ(smooth.exit_code, 0) << smooth.err;
+  const std::vector<std::string> lines = lines_of(smooth.out);
+  ASSERT_FALSE(lines.empty());
+  EXPECT_EQ(lines[0], std::string(kCsvHeader) + ",f0_smoothed_hz,bridged");
+  // The same rows as without smoothing, with two more fields; no frame is bridged unless asked.
+  ASSERT_EQ(lines.size(), lines_of(plain.out).size());
+  std::size_t gap_rows = 0, bridged_rows = 0;
+  for (std::size_t i = 1; i < lines.size(); ++i) {
+    const std::vector<std::string> fields = split_csv(lines[i]);
+    ASSERT_EQ(fields.size(), 8u) << lines[i];
+    EXPECT_EQ(fields[7], "0") << lines[i];
+    EXPECT_EQ(fields[1].empty(), fields[6].empty()) << lines[i];  // unvoiced stays unvoiced
+    const double t = std::stod(fields[0]);
+    if (t > 0.41 && t < 0.42 && fields[1].empty()) ++gap_rows;
+  }
+  EXPECT_GT(gap_rows, 0u);
+
+  // Bridging a gap shorter than --bridge-ms fills it, and marks the frames.
+  const Result bridged = analyze(dir, file, "--smooth --bridge-ms 60");
+  ASSERT_EQ(bridged.exit_code, 0) << bridged.err;
+  for (const std::string& line : lines_of(bridged.out)) {
+    const std::vector<std::string> fields = split_csv(line);
+    if (fields.size() == 8 && fields[7] == "1") {
+      ++bridged_rows;
+      EXPECT_TRUE(fields[1].empty()) << line;  // only unvoiced frames are bridged
+      EXPECT_NEAR(std::stod(fields[6]), 200.0, 2.0) << line;
+    }
+  }
+  EXPECT_GT(bridged_rows, 0u);
+
+  const Result lonely = analyze(dir, file, "--bridge-ms 60");
+  EXPECT_EQ(lonely.exit_code, 2);
+  EXPECT_NE(lonely.err.find("--bridge-ms needs --smooth"), std::string::npos) << lonely.err;
+}
+
 TEST(PitchwireAnalyze, MissingFile) {
   TempDir dir;
   const auto file = dir / "absent.wav";

@@ -9,9 +9,11 @@
 #include <optional>
 #include <string>
 #include <utility>
+#include <vector>
 
 #include "output.h"
 #include "pitchwire/audiofile/audio_file.h"
+#include "pitchwire/dsp/contour_smoother.h"
 #include "pitchwire/dsp/pitch_tracker.h"
 
 namespace pitchwire::cli {
@@ -53,23 +55,56 @@ class Progress {
   int last_ = -1;
 };
 
+// Writes a row per settled frame. With the smoothing stage, rows wait (a bounded number of frames,
+// the stage's delay) until the stage has the smoothed value of the same frame.
 class RowSink final : public dsp::FrameSink {
  public:
-  RowSink(Output& out, FrameFormat format) : out_(out), format_(format) { line_.reserve(256); }
+  RowSink(Output& out, FrameFormat format, std::optional<dsp::SmootherConfig> smoothing)
+      : out_(out), format_(format) {
+    line_.reserve(256);
+    if (smoothing) {
+      smoother_.emplace(*smoothing);
+      pending_.resize(static_cast<std::size_t>(smoother_->delay_frames()) + 2);
+    }
+  }
 
   void on_live(const dsp::LiveFrame& /*frame*/) override {}
 
   void on_settled(const dsp::SettledFrame& frame) override {
-    if (!out_.ok()) return;
-    line_.clear();
-    append_frame(line_, frame, format_);
-    out_.write(line_);
+    if (!smoother_) {
+      write(frame, nullptr);
+      return;
+    }
+    pending_[slot(frame.index)] = frame;
+    dsp::SmoothedFrame smoothed;
+    if (smoother_->push(frame, &smoothed) == 1) write(pending_[slot(smoothed.index)], &smoothed);
+  }
+
+  // End of stream: the rows still held by the smoothing stage.
+  void finish() {
+    if (!smoother_) return;
+    std::vector<dsp::SmoothedFrame> rest;
+    smoother_->flush(rest);
+    for (const auto& smoothed : rest) write(pending_[slot(smoothed.index)], &smoothed);
   }
 
  private:
+  [[nodiscard]] std::size_t slot(std::int64_t index) const {
+    return static_cast<std::size_t>(index % static_cast<std::int64_t>(pending_.size()));
+  }
+
+  void write(const dsp::SettledFrame& frame, const dsp::SmoothedFrame* smoothed) {
+    if (!out_.ok()) return;
+    line_.clear();
+    append_frame(line_, frame, format_, smoothed);
+    out_.write(line_);
+  }
+
   Output& out_;
   FrameFormat format_;
   std::string line_;
+  std::optional<dsp::ContourSmoother> smoother_;
+  std::vector<dsp::SettledFrame> pending_;  // ring of frames awaiting their smoothed value
 };
 
 void report(const std::string& message) { std::fprintf(stderr, "pitchwire analyze: %s\n", message.c_str()); }
@@ -119,9 +154,20 @@ int run_analyze(const AnalyzeOptions& options) {
     return 2;
   }
 
+  std::optional<dsp::SmootherConfig> smoothing;
+  if (options.smooth) {
+    smoothing.emplace();
+    smoothing->hop_ms = config.hop_ms;
+    if (options.bridge_ms) smoothing->bridge_max_ms = *options.bridge_ms;
+    if (const std::string problem = smoothing->validate(); !problem.empty()) {
+      report(problem);
+      return 2;
+    }
+  }
+
   Output out(STDOUT_FILENO);
-  RowSink sink(out, options.format);
-  out.write(frame_header(options.format));
+  RowSink sink(out, options.format, smoothing);
+  out.write(frame_header(options.format, options.smooth));
   Progress progress("pitchwire analyze: " + path);
 
   try {
@@ -134,12 +180,14 @@ int run_analyze(const AnalyzeOptions& options) {
     // The stream ends where the problem is: the frames before it are written, nothing after it is
     // analysed, and the message follows.
     tracker->flush(sink);
+    sink.finish();
     progress.clear();
     if (!out.flush()) return output_failure(out);
     report(path + ": " + e.what());
     return 2;
   }
   tracker->flush(sink);
+  sink.finish();
   progress.clear();
   if (!out.flush()) return output_failure(out);
   return 0;

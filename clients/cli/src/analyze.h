@@ -18,6 +18,8 @@ struct AnalyzeOptions {
   std::optional<double> settle_ms;
   std::optional<int> channel;  // 1-based; empty: mean of all channels
   bool hum_cancel = true;
+  bool smooth = false;               // add the smoothing stage's columns
+  std::optional<double> bridge_ms;   // with smooth: bridge unvoiced gaps up to this long
 };
 
 // Exit codes: 0 done (or stdout closed by the reader), 1 stdout could not be written, 2 bad input.

@@ -4,6 +4,7 @@
 #include <CLI/CLI.hpp>
 
 #include <csignal>
+#include <cstdio>
 #include <sstream>
 #include <string>
 
@@ -57,6 +58,11 @@ int run(int argc, char** argv) {
                           "Channel to analyse, from 1 (default: the mean of all channels)");
   bool no_hum_cancel = false;
   analyze_cmd->add_flag("--no-hum-cancel", no_hum_cancel, "Do not cancel 50/60 Hz mains hum");
+  analyze_cmd->add_flag("--smooth", analyze.smooth,
+                        "Add f0_smoothed_hz: brief dips next to consonants removed (running median in semitones)");
+  analyze_cmd->add_option("--bridge-ms", analyze.bridge_ms,
+                          "With --smooth: fill unvoiced gaps up to this long, marked in the bridged column "
+                          "(default 0: never)");
 
   DemoOptions demo;
   CLI::App* demo_cmd =
@@ -73,6 +79,10 @@ int run(int argc, char** argv) {
   if (analyze_cmd->parsed()) {
     analyze.format = format == "jsonl" ? FrameFormat::kJsonl : FrameFormat::kCsv;
     analyze.hum_cancel = !no_hum_cancel;
+    if (analyze.bridge_ms && !analyze.smooth) {
+      std::fprintf(stderr, "pitchwire analyze: --bridge-ms needs --smooth (gaps are bridged only in the smoothed column)\n");
+      return 2;
+    }
     return run_analyze(analyze);
   }
   return run_demo(demo);

@@ -31,11 +31,14 @@ std::optional<double> widen(const std::optional<float>& v) {
 
 }  // namespace
 
-std::string_view frame_header(FrameFormat format) {
-  return format == FrameFormat::kCsv ? "time_s,f0_hz,f0_live_hz,voicing,confidence,level_dbfs\n" : "";
+std::string_view frame_header(FrameFormat format, bool smoothed) {
+  if (format != FrameFormat::kCsv) return "";
+  return smoothed ? "time_s,f0_hz,f0_live_hz,voicing,confidence,level_dbfs,f0_smoothed_hz,bridged\n"
+                  : "time_s,f0_hz,f0_live_hz,voicing,confidence,level_dbfs\n";
 }
 
-void append_frame(std::string& out, const dsp::SettledFrame& frame, FrameFormat format) {
+void append_frame(std::string& out, const dsp::SettledFrame& frame, FrameFormat format,
+                  const dsp::SmoothedFrame* smoothed) {
   if (format == FrameFormat::kCsv) {
     append_number(out, frame.time_s, 6, "");
     out += ',';
@@ -48,6 +51,11 @@ void append_frame(std::string& out, const dsp::SettledFrame& frame, FrameFormat 
     append_number(out, frame.confidence, 3, "");
     out += ',';
     append_number(out, frame.level_dbfs, 2, "");
+    if (smoothed) {
+      out += ',';
+      append_number(out, widen(smoothed->f0_hz), 3, "");
+      out += smoothed->bridged ? ",1" : ",0";
+    }
     out += '\n';
     return;
   }
@@ -63,6 +71,11 @@ void append_frame(std::string& out, const dsp::SettledFrame& frame, FrameFormat 
   append_number(out, frame.confidence, 3, "null");
   out += ",\"level_dbfs\":";
   append_number(out, frame.level_dbfs, 2, "null");
+  if (smoothed) {
+    out += ",\"f0_smoothed_hz\":";
+    append_number(out, widen(smoothed->f0_hz), 3, "null");
+    out += smoothed->bridged ? ",\"bridged\":true" : ",\"bridged\":false";
+  }
   out += "}\n";
 }
 

@@ -8,16 +8,19 @@
 #include <string>
 #include <string_view>
 
+#include "pitchwire/dsp/contour_smoother.h"
 #include "pitchwire/dsp/pitch_tracker.h"
 
 namespace pitchwire::cli {
 
 enum class FrameFormat { kCsv, kJsonl };
 
-// The CSV header line (with its newline); empty for JSON lines.
-[[nodiscard]] std::string_view frame_header(FrameFormat format);
+// The CSV header line (with its newline); empty for JSON lines. With `smoothed`, two more columns:
+// f0_smoothed_hz (3 decimals, empty/null when unvoiced and not bridged) and bridged (0 or 1).
+[[nodiscard]] std::string_view frame_header(FrameFormat format, bool smoothed = false);
 
-// Appends one line (with its newline) to out.
-void append_frame(std::string& out, const dsp::SettledFrame& frame, FrameFormat format);
+// Appends one line (with its newline) to out; `smoothed`, when given, adds the smoothing stage's fields.
+void append_frame(std::string& out, const dsp::SettledFrame& frame, FrameFormat format,
+                  const dsp::SmoothedFrame* smoothed = nullptr);
 
 }  // namespace pitchwire::cli
