@@ -31,6 +31,7 @@ constexpr std::size_t kMaxCandidates = 8;
 constexpr std::size_t kThresholds = 100;     // resolution of the threshold prior's table
 constexpr double kLevelGateBelowPeakDb = 22.0;
 constexpr double kPeakDecayDbPerS = 3.0;
+constexpr int kSettleSmoothReach = 4;            // settled F0 averages neighbours up to 4 hops away
 constexpr double kPriorA = 2.0, kPriorB = 18.0;  // threshold prior Beta(2, 18): mean 0.1 (YIN's threshold)
 constexpr double kVoicedDip = 0.45;              // deepest dip value at which voicing evidence is 1/2
 constexpr double kVoicedDipWidth = 0.05;         // and how fast the evidence changes around it
@@ -298,6 +299,7 @@ struct PitchTracker::Impl {
   std::vector<float> bin_index;  // 0, 1, 2, ... as floats
   std::size_t best_voiced_bin = 0;  // voiced state with the best score after the latest step
   std::vector<std::size_t> path_scratch;
+  std::array<double, kSettleSmoothReach> raw_history{};  // path F0 of the last settled frames, newest first
   std::vector<std::int16_t> backptr;  // ring [ring_len][n_bins + 1]
   int settle = 0, ring_len = 0;
   std::vector<FrameRecord> records;
@@ -410,6 +412,7 @@ struct PitchTracker::Impl {
     next_settled = 0;
     hmm_started = false;
     best_voiced_bin = 0;
+    raw_history.fill(0.0);
     peak_db = -200;
   }
 
@@ -797,23 +800,43 @@ struct PitchTracker::Impl {
   void settle_from(std::int64_t now, std::int64_t upto, FrameSink& sink) {
     const auto U = static_cast<std::size_t>(n_bins);
     std::size_t state = delta[best_voiced_bin] > delta[U] ? best_voiced_bin : U;
-    // Walk back from `now` to `upto`, then emit upto, and further back only if several are pending (flush).
+    // The best path from `now` back to the oldest pending frame; path[i] is the state at first + i.
     std::vector<std::size_t>& path = path_scratch;
     const std::int64_t first = next_settled;
-    std::int64_t t = now;
-    for (; t > upto; --t) state = static_cast<std::size_t>(backptr[static_cast<std::size_t>(t % ring_len) * (U + 1) + state]);
-    // Now state is the best state at frame `upto`; trace further back for the older pending frames.
-    const auto count = static_cast<std::size_t>(upto - first + 1);
+    const auto count = static_cast<std::size_t>(now - first + 1);
     path[count - 1] = state;
     for (std::size_t i = count - 1; i > 0; --i) {
-      state = static_cast<std::size_t>(backptr[static_cast<std::size_t>((first + static_cast<std::int64_t>(i)) % ring_len) * (U + 1) + state]);
+      state = static_cast<std::size_t>(
+          backptr[static_cast<std::size_t>((first + static_cast<std::int64_t>(i)) % ring_len) * (U + 1) + state]);
       path[i - 1] = state;
     }
-    for (std::size_t i = 0; i < count; ++i) emit_settled(first + static_cast<std::int64_t>(i), path[i], sink);
+    for (std::int64_t k = first; k <= upto; ++k) emit_settled(k, first, now, sink);
     next_settled = upto + 1;
   }
 
-  void emit_settled(std::int64_t k, std::size_t state, FrameSink& sink) {
+  // F0 of frame j on the path (0 when unvoiced): the candidate nearest the path's bin gives the sub-bin
+  // frequency; the bin centre if none is near.
+  [[nodiscard]] double path_f0(std::int64_t j, std::size_t state) const {
+    if (state == static_cast<std::size_t>(n_bins)) return 0.0;
+    const FrameRecord& rec = records[static_cast<std::size_t>(j % ring_len)];
+    const std::size_t c = nearest_candidate(rec, state);
+    return c < rec.n_cand ? rec.cand[c].f0_hz : f_of_bin(static_cast<double>(state));
+  }
+
+  // Emits frame k, whose path states from `first` to `now` are in path_scratch. The settled F0 is the
+  // path's F0 averaged in log frequency with symmetric pairs of neighbours (k - d, k + d for d up to
+  // kSettleSmoothReach, triangular weights) that are voiced and within a semitone of it: cycle-to-cycle
+  // jitter averages out, and a linear glide keeps its value at the frame's centre. Pairs that are not
+  // both available (near a gap, at the end, or beyond the settle lag) are left out.
+  void emit_settled(std::int64_t k, std::int64_t first, std::int64_t now, FrameSink& sink) {
+    auto raw = [&](std::int64_t j) -> double {
+      if (j > now) return 0.0;
+      if (j < first) {
+        const std::int64_t back = k - j;  // 1 = the frame settled just before k
+        return back >= 1 && back <= kSettleSmoothReach && j >= 0 ? raw_history[static_cast<std::size_t>(back - 1) % raw_history.size()] : 0.0;
+      }
+      return path_f0(j, path_scratch[static_cast<std::size_t>(j - first)]);
+    };
     const FrameRecord& rec = records[static_cast<std::size_t>(k % ring_len)];
     SettledFrame out;
     out.index = k;
@@ -822,11 +845,23 @@ struct PitchTracker::Impl {
     out.voicing = rec.voicing;
     out.confidence = rec.confidence;
     out.level_dbfs = rec.level_dbfs;
-    if (state != static_cast<std::size_t>(n_bins)) {
-      // The candidate nearest the path's bin gives the sub-bin frequency; the bin centre if none is near.
-      const std::size_t c = nearest_candidate(rec, state);
-      out.f0_hz = c < rec.n_cand ? rec.cand[c].f0_hz : static_cast<float>(f_of_bin(static_cast<double>(state)));
+    const double f = raw(k);
+    if (f > 0) {
+      const double lf = std::log2(f);
+      double sum = (kSettleSmoothReach + 1) * lf, weight = kSettleSmoothReach + 1;
+      for (int d = 1; d <= kSettleSmoothReach; ++d) {
+        const double a = raw(k - d), b = raw(k + d);
+        if (a <= 0 || b <= 0) continue;
+        const double la = std::log2(a), lb = std::log2(b);
+        if (std::abs(la - lf) * 12 > 1.0 || std::abs(lb - lf) * 12 > 1.0) continue;
+        const double w = kSettleSmoothReach + 1 - d;
+        sum += w * (la + lb);
+        weight += 2 * w;
+      }
+      out.f0_hz = static_cast<float>(std::exp2(sum / weight));
     }
+    for (std::size_t i = raw_history.size() - 1; i > 0; --i) raw_history[i] = raw_history[i - 1];
+    raw_history[0] = f;
     sink.on_settled(out);
   }
 

@@ -38,12 +38,14 @@ std::vector<float> sine(double fs, double f, double seconds, double amp = 0.5) {
   return x;
 }
 
-// Frames whose window lies wholly inside the signal (the first 40 ms also hold the filters' start-up; the last 25 ms are partly padding).
+// Frames whose window lies wholly inside the signal: the first 40 ms hold the filters' start-up on an
+// abrupt onset, the last 25 ms are partly padding, and the settled value averages neighbours up to 20 ms
+// away: 20 ms more at either end.
 template <typename F>
 std::vector<F> interior(const std::vector<F>& frames, double seconds) {
   std::vector<F> out;
   for (const auto& f : frames)
-    if (f.time_s >= 0.04 && f.time_s <= seconds - 0.025) out.push_back(f);
+    if (f.time_s >= 0.06 && f.time_s <= seconds - 0.045) out.push_back(f);
   return out;
 }
 
