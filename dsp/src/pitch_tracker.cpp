@@ -31,6 +31,10 @@ constexpr std::size_t kMaxCandidates = 8;
 constexpr std::size_t kThresholds = 100;     // resolution of the threshold prior's table
 constexpr double kLevelGateBelowPeakDb = 22.0;
 constexpr double kPeakDecayDbPerS = 3.0;
+constexpr double kSpeakerMemoryS = 4.0;          // speaker model: how long the voice's pitch is remembered
+constexpr double kSpeakerMinWeight = 20.0;       // and how much must be heard (peak-level frames) first
+constexpr double kFarCents = 1000.0;             // a candidate this far from the voice's centre is "far"
+constexpr double kFarBelowPeakDb = 6.0;          // and must be within this much of the recent peak level
 constexpr int kSettleSmoothReach = 4;            // settled F0 averages neighbours up to 4 hops away
 constexpr double kPriorA = 2.0, kPriorB = 18.0;  // threshold prior Beta(2, 18): mean 0.1 (YIN's threshold)
 constexpr double kVoicedDip = 0.45;              // deepest dip value at which voicing evidence is 1/2
@@ -298,6 +302,8 @@ struct PitchTracker::Impl {
   std::vector<float> kernel, delta, delta_new, obs, arg_scratch;
   std::vector<float> bin_index;  // 0, 1, 2, ... as floats
   std::size_t best_voiced_bin = 0;  // voiced state with the best score after the latest step
+  std::vector<double> speaker_hist;  // speaker model: decaying, level-weighted histogram of live F0 bins
+  double speaker_total = 0;
   std::vector<std::size_t> path_scratch;
   std::array<double, kSettleSmoothReach> raw_history{};  // path F0 of the last settled frames, newest first
   std::vector<std::int16_t> backptr;  // ring [ring_len][n_bins + 1]
@@ -373,6 +379,7 @@ struct PitchTracker::Impl {
     delta.assign(states, 0);
     delta_new.assign(states, 0);
     arg_scratch.assign(states, 0);
+    speaker_hist.assign(static_cast<std::size_t>(n_bins), 0.0);
     bin_index.resize(states);
     for (std::size_t b = 0; b < states; ++b) bin_index[b] = static_cast<float>(b);
     obs.assign(states, 0);
@@ -413,6 +420,8 @@ struct PitchTracker::Impl {
     hmm_started = false;
     best_voiced_bin = 0;
     raw_history.fill(0.0);
+    std::fill(speaker_hist.begin(), speaker_hist.end(), 0.0);
+    speaker_total = 0;
     peak_db = -200;
   }
 
@@ -682,8 +691,21 @@ struct PitchTracker::Impl {
     std::fill(obs.begin(), obs.begin() + static_cast<std::ptrdiff_t>(U), static_cast<float>(pv * 1e-3 / n_bins));
     double wmax = 0;
     for (std::size_t i = 0; i < rec.n_cand; ++i) wmax = std::max(wmax, static_cast<double>(rec.cand[i].prob));
+    // Speaker model: a candidate far in pitch from where the followed voice has been (see
+    // speaker_centre()) must also be nearly as loud as that voice's recent peak, so that a quieter
+    // second voice in the room is not taken for the speaker in the speaker's pauses.
+    const double centre = speaker_centre();
+    const double far_gate = sigmoid((level_db - (peak_db - kFarBelowPeakDb)) / 2.0);
+    double pv_eff = 0;
+    std::array<double, kMaxCandidates> cand_gate{};
+    for (std::size_t i = 0; i < rec.n_cand; ++i) {
+      const bool far = centre >= 0 && std::abs(rec.cand[i].bin - centre) * kBinCents > kFarCents;
+      cand_gate[i] = far ? far_gate : 1.0;
+      if (wmax > 0) pv_eff = std::max(pv_eff, pv * cand_gate[i] * rec.cand[i].prob / wmax);
+    }
     for (std::size_t i = 0; i < rec.n_cand && wmax > 0; ++i) {
-      const double w = pv * rec.cand[i].prob / wmax;  // the likeliest candidate carries the full evidence
+      // The likeliest candidate carries the full evidence.
+      const double w = pv * cand_gate[i] * rec.cand[i].prob / wmax;
       const double cb = rec.cand[i].bin;
       const int lo = std::max(0, static_cast<int>(std::floor(cb)) - 2);
       const int hi = std::min(n_bins - 1, static_cast<int>(std::ceil(cb)) + 2);
@@ -693,7 +715,7 @@ struct PitchTracker::Impl {
         o = std::max(o, static_cast<float>(w * std::exp(-0.5 * dc * dc)));
       }
     }
-    obs[U] = static_cast<float>(1.0 - pv);
+    obs[U] = static_cast<float>(1.0 - std::min(pv_eff, 0.9999));
 
     hmm_step(k);
 
@@ -706,6 +728,7 @@ struct PitchTracker::Impl {
       rec.live_f0 = c < rec.n_cand ? rec.cand[c].f0_hz : static_cast<float>(f_of_bin(static_cast<double>(best_bin)));
       rec.confidence = c < rec.n_cand && wsum > 0 ? static_cast<float>(pv * rec.cand[c].prob / wsum) : 0.0f;
     }
+    speaker_update(rec.live_f0 ? bin_of(*rec.live_f0) : -1.0, level_db);
     LiveFrame live;
     live.index = k;
     live.time_s = rec.time_s;
@@ -716,6 +739,30 @@ struct PitchTracker::Impl {
     sink.on_live(live);
 
     if (k - next_settled >= settle) settle_from(k, k - settle, sink);
+  }
+
+  // Where the followed voice has been: the weighted median bin of a histogram of live voiced frames,
+  // each weighted by its power relative to the recent peak (quieter frames count far less), decaying with
+  // a time constant of kSpeakerMemoryS. -1 until enough has been heard.
+  [[nodiscard]] double speaker_centre() const {
+    if (speaker_total < kSpeakerMinWeight) return -1.0;
+    double acc = 0;
+    for (std::size_t b = 0; b < speaker_hist.size(); ++b) {
+      acc += speaker_hist[b];
+      if (acc >= 0.5 * speaker_total) return static_cast<double>(b);
+    }
+    return -1.0;
+  }
+
+  void speaker_update(double bin, double level_db) {
+    const double decay = std::exp(-cfg.hop_ms * 1e-3 / kSpeakerMemoryS);
+    for (auto& h : speaker_hist) h *= decay;
+    speaker_total *= decay;
+    if (bin < 0) return;
+    const double w = std::min(1.0, std::exp2((level_db - peak_db) / 3.0103));  // power re the peak
+    const auto b = static_cast<std::size_t>(std::clamp(std::lround(bin), 0L, static_cast<long>(n_bins - 1)));
+    speaker_hist[b] += w;
+    speaker_total += w;
   }
 
   // The candidate nearest a path's bin (within 3 bins, 75 cents), or n_cand when there is none.

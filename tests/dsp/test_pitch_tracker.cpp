@@ -152,6 +152,54 @@ TEST(PitchTracker, GlideIsFollowedWithoutOctaveJumps) {
   }
 }
 
+// A harmonic-rich tone (1/h amplitudes, 6 harmonics) from t0 to t1 seconds, added into x.
+void add_voice(std::vector<float>& x, double fs, double f, double amp, double t0, double t1) {
+  for (auto i = static_cast<std::size_t>(t0 * fs); i < std::min(x.size(), static_cast<std::size_t>(t1 * fs)); ++i) {
+    const double t = static_cast<double>(i) / fs;
+    double v = 0;
+    for (int h = 1; h <= 6; ++h) v += std::sin(2 * kPi * f * h * t) / h;
+    x[i] += static_cast<float>(amp * v);
+  }
+}
+
+double voiced_share(const std::vector<SettledFrame>& frames, double t0, double t1) {
+  std::size_t n = 0, v = 0;
+  for (const auto& f : frames)
+    if (f.time_s >= t0 && f.time_s < t1) {
+      ++n;
+      v += f.f0_hz ? 1 : 0;
+    }
+  return n ? static_cast<double>(v) / static_cast<double>(n) : 0.0;
+}
+
+TEST(PitchTracker, AQuieterSecondVoiceFarInPitchIsNotTakenForTheSpeaker) {
+  // The speaker at 220 Hz for 2 s, a pause with another voice 12 dB quieter an octave lower, the speaker
+  // again. Another voice in the room is an interferer (the speaker model in docs/estimator.md).
+  const double fs = 16000;
+  std::vector<float> x(static_cast<std::size_t>(4.0 * fs), 0.0f);
+  add_voice(x, fs, 220, 0.3, 0.0, 2.0);
+  add_voice(x, fs, 110, 0.3 * std::pow(10.0, -12.0 / 20), 2.1, 2.9);
+  add_voice(x, fs, 220, 0.3, 3.0, 4.0);
+  const auto out = run(x, fs).settled;
+  EXPECT_GE(voiced_share(out, 0.1, 1.9), 0.99);
+  EXPECT_LE(voiced_share(out, 2.2, 2.8), 0.01);
+  EXPECT_GE(voiced_share(out, 3.1, 3.9), 0.99);
+}
+
+TEST(PitchTracker, TheSpeakerMovingFarInPitchAtFullLevelIsFollowed) {
+  // The same speaker jumping an octave and a fifth down at the same level stays voiced and is followed.
+  const double fs = 16000;
+  std::vector<float> x(static_cast<std::size_t>(4.0 * fs), 0.0f);
+  add_voice(x, fs, 330, 0.3, 0.0, 2.0);
+  add_voice(x, fs, 110, 0.3, 2.1, 4.0);
+  const auto out = run(x, fs).settled;
+  EXPECT_GE(voiced_share(out, 2.2, 3.9), 0.99);
+  for (const auto& f : out)
+    if (f.time_s > 2.2 && f.time_s < 3.9 && f.f0_hz) {
+      EXPECT_LT(std::abs(cents(*f.f0_hz, 110)), 50.0) << f.time_s;
+    }
+}
+
 TEST(PitchTracker, FrameTimesAreWindowCentresAndEveryHopWithinTheInputGetsAFrame) {
   // Frames are centred on k * hop for every k with k * hop <= duration, counted in samples: 48 kHz makes
   // every hop a whole number of samples. 1.2 s is a whole number of hops (1.2 / 0.005 is 239.999... in
