@@ -36,11 +36,11 @@ BAR_SETTLED_VDE = 0.03
 BAR_LIVE_RPA = 0.95
 
 # Regression floors for --check-floors on the quick corpus (seed 1), set a little below what the tracker
-# reached when they were last raised (settled RPA 0.930, GPE 1.07 %, VDE 3.90 %, live RPA 0.909). They
+# reached when they were last raised (settled RPA 0.931, GPE 0.87 %, VDE 3.30 %, live RPA 0.909). They
 # guard against losing ground; they are not the targets above. Raise them as the tracker improves.
 FLOOR_SETTLED_RPA = 0.92
-FLOOR_SETTLED_GPE = 0.015
-FLOOR_SETTLED_VDE = 0.045
+FLOOR_SETTLED_GPE = 0.012
+FLOOR_SETTLED_VDE = 0.04
 FLOOR_LIVE_RPA = 0.89
 
 
