@@ -31,7 +31,8 @@ constexpr std::size_t kMaxCandidates = 8;
 constexpr std::size_t kThresholds = 100;     // resolution of the threshold prior's table
 constexpr double kLevelGateBelowPeakDb = 22.0;
 constexpr double kPeakDecayDbPerS = 3.0;
-constexpr double kSpeakerMemoryS = 4.0;          // speaker model: how long the voice's pitch is remembered
+constexpr double kSpeakerMemoryS = 30.0;         // speaker model: how long the voice's registers are remembered
+constexpr double kSpeakerKnownShare = 0.1;      // a bin with this share of the fullest one is a known register
 constexpr double kSpeakerMinWeight = 20.0;       // and how much must be heard (peak-level frames) first
 constexpr double kFarCents = 1000.0;             // a candidate this far from the voice's centre is "far"
 constexpr double kFarBelowPeakDb = 6.0;          // and must be within this much of the recent peak level
@@ -304,6 +305,8 @@ struct PitchTracker::Impl {
   std::size_t best_voiced_bin = 0;  // voiced state with the best score after the latest step
   std::vector<double> speaker_hist;  // speaker model: decaying, level-weighted histogram of live F0 bins
   double speaker_total = 0;
+  std::vector<int> speaker_dist;            // scratch: distance to the nearest known bin
+  std::vector<std::uint8_t> speaker_near;   // 1 where a bin is within kFarCents of a known bin
   std::vector<std::size_t> path_scratch;
   std::array<double, kSettleSmoothReach> raw_history{};  // path F0 of the last settled frames, newest first
   std::vector<std::int16_t> backptr;  // ring [ring_len][n_bins + 1]
@@ -380,6 +383,8 @@ struct PitchTracker::Impl {
     delta_new.assign(states, 0);
     arg_scratch.assign(states, 0);
     speaker_hist.assign(static_cast<std::size_t>(n_bins), 0.0);
+    speaker_dist.assign(static_cast<std::size_t>(n_bins), 0);
+    speaker_near.assign(static_cast<std::size_t>(n_bins), 1);
     bin_index.resize(states);
     for (std::size_t b = 0; b < states; ++b) bin_index[b] = static_cast<float>(b);
     obs.assign(states, 0);
@@ -691,15 +696,16 @@ struct PitchTracker::Impl {
     std::fill(obs.begin(), obs.begin() + static_cast<std::ptrdiff_t>(U), static_cast<float>(pv * 1e-3 / n_bins));
     double wmax = 0;
     for (std::size_t i = 0; i < rec.n_cand; ++i) wmax = std::max(wmax, static_cast<double>(rec.cand[i].prob));
-    // Speaker model: a candidate far in pitch from where the followed voice has been (see
-    // speaker_centre()) must also be nearly as loud as that voice's recent peak, so that a quieter
+    // Speaker model: a candidate far in pitch from every register the followed voice has used (see
+    // speaker_refresh()) must also be nearly as loud as that voice's recent peak, so that a quieter
     // second voice in the room is not taken for the speaker in the speaker's pauses.
-    const double centre = speaker_centre();
+    speaker_refresh();
     const double far_gate = sigmoid((level_db - (peak_db - kFarBelowPeakDb)) / 2.0);
     double pv_eff = 0;
     std::array<double, kMaxCandidates> cand_gate{};
     for (std::size_t i = 0; i < rec.n_cand; ++i) {
-      const bool far = centre >= 0 && std::abs(rec.cand[i].bin - centre) * kBinCents > kFarCents;
+      const auto cb = static_cast<std::size_t>(std::clamp(std::lround(rec.cand[i].bin), 0L, static_cast<long>(n_bins - 1)));
+      const bool far = speaker_near[cb] == 0;
       cand_gate[i] = far ? far_gate : 1.0;
       if (wmax > 0) pv_eff = std::max(pv_eff, pv * cand_gate[i] * rec.cand[i].prob / wmax);
     }
@@ -741,17 +747,33 @@ struct PitchTracker::Impl {
     if (k - next_settled >= settle) settle_from(k, k - settle, sink);
   }
 
-  // Where the followed voice has been: the weighted median bin of a histogram of live voiced frames,
-  // each weighted by its power relative to the recent peak (quieter frames count far less), decaying with
-  // a time constant of kSpeakerMemoryS. -1 until enough has been heard.
-  [[nodiscard]] double speaker_centre() const {
-    if (speaker_total < kSpeakerMinWeight) return -1.0;
-    double acc = 0;
-    for (std::size_t b = 0; b < speaker_hist.size(); ++b) {
-      acc += speaker_hist[b];
-      if (acc >= 0.5 * speaker_total) return static_cast<double>(b);
+  // Where the followed voice has been: a histogram of live voiced frames over the pitch bins, each
+  // weighted by its power relative to the recent peak (quieter frames count far less), decaying with a
+  // time constant of kSpeakerMemoryS. speaker_near[b] says whether bin b lies within kFarCents of a bin
+  // holding at least kSpeakerKnownShare of the histogram's largest bin: every register the voice has
+  // used (speaking and singing alike) stays known. Refreshed once per frame; all near until enough has
+  // been heard.
+  void speaker_refresh() {
+    const auto n = static_cast<int>(speaker_hist.size());
+    const double top = *std::max_element(speaker_hist.begin(), speaker_hist.end());
+    const int reach = static_cast<int>(kFarCents / kBinCents);
+    if (speaker_total < kSpeakerMinWeight) {
+      std::fill(speaker_near.begin(), speaker_near.end(), 1);
+      return;
     }
-    return -1.0;
+    // Distance (in bins) to the nearest known bin, by two sweeps.
+    int last = -1'000'000;
+    for (int b = 0; b < n; ++b) {
+      if (speaker_hist[static_cast<std::size_t>(b)] >= kSpeakerKnownShare * top) last = b;
+      speaker_dist[static_cast<std::size_t>(b)] = b - last;
+    }
+    last = 1'000'000;
+    for (int b = n - 1; b >= 0; --b) {
+      if (speaker_hist[static_cast<std::size_t>(b)] >= kSpeakerKnownShare * top) last = b;
+      auto& d = speaker_dist[static_cast<std::size_t>(b)];
+      d = std::min(d, last - b);
+      speaker_near[static_cast<std::size_t>(b)] = d <= reach ? 1 : 0;
+    }
   }
 
   void speaker_update(double bin, double level_db) {
@@ -759,7 +781,7 @@ struct PitchTracker::Impl {
     for (auto& h : speaker_hist) h *= decay;
     speaker_total *= decay;
     if (bin < 0) return;
-    const double w = std::min(1.0, std::exp2((level_db - peak_db) / 3.0103));  // power re the peak
+    const double w = std::min(1.0, std::exp2((level_db - peak_db) / 1.50515));  // power re the peak, squared
     const auto b = static_cast<std::size_t>(std::clamp(std::lround(bin), 0L, static_cast<long>(n_bins - 1)));
     speaker_hist[b] += w;
     speaker_total += w;

@@ -200,6 +200,20 @@ TEST(PitchTracker, TheSpeakerMovingFarInPitchAtFullLevelIsFollowed) {
     }
 }
 
+TEST(PitchTracker, SpeakingAgainAfterLoudHighSingingIsStillTheSpeaker) {
+  // A coach speaks near 200 Hz, sings loud notes 19 semitones higher for 3 s, then speaks again at the
+  // first level: every register the voice has used stays the speaker's.
+  const double fs = 16000;
+  std::vector<float> x(static_cast<std::size_t>(9.0 * fs), 0.0f);
+  add_voice(x, fs, 200, 0.1, 0.0, 3.0);
+  add_voice(x, fs, 600, 0.4, 3.1, 6.0);
+  add_voice(x, fs, 200, 0.1, 6.1, 9.0);
+  const auto out = run(x, fs).settled;
+  EXPECT_GE(voiced_share(out, 0.1, 2.9), 0.99);
+  EXPECT_GE(voiced_share(out, 3.2, 5.9), 0.99);
+  EXPECT_GE(voiced_share(out, 6.2, 8.9), 0.99);
+}
+
 TEST(PitchTracker, FrameTimesAreWindowCentresAndEveryHopWithinTheInputGetsAFrame) {
   // Frames are centred on k * hop for every k with k * hop <= duration, counted in samples: 48 kHz makes
   // every hop a whole number of samples. 1.2 s is a whole number of hops (1.2 / 0.005 is 239.999... in
