@@ -38,7 +38,8 @@ constexpr double kFarCents = 1000.0;             // a candidate this far from th
 constexpr double kFarBelowPeakDb = 6.0;          // and must be within this much of the recent peak level
 constexpr int kSettleSmoothReach = 4;            // settled F0 averages neighbours up to 4 hops away
 constexpr double kPriorA = 2.0, kPriorB = 18.0;  // threshold prior Beta(2, 18): mean 0.1 (YIN's threshold)
-constexpr double kVoicedDip = 0.45;              // deepest dip value at which voicing evidence is 1/2
+constexpr double kVoicedDip = 0.55;              // deepest dip value at which voicing evidence is 1/2
+constexpr double kNoisyDip = 0.25;               // a frame whose deepest dip is above this is noisy
 constexpr double kVoicedDipWidth = 0.05;         // and how fast the evidence changes around it
 constexpr double kCentreBelowWindowDb = 10.0;    // a frame whose middle is this much quieter than its
                                                  // window sits in a pause next to a voiced stretch
@@ -613,16 +614,25 @@ struct PitchTracker::Impl {
     }
     // Thresholds below every dip: probabilistic YIN gives the global minimum a 0.01 share. When the
     // signal is noisy every dip is shallow and the global minimum falls on the period or on a multiple
-    // of it almost by chance; the earliest dip nearly as deep (within a tenth of the remaining range)
-    // takes that share instead, as YIN's own rule prefers the shortest lag.
+    // of it almost by chance; the earliest dip nearly as deep takes that share instead, as YIN's own rule
+    // prefers the shortest lag.
     std::size_t fallback = global;
-    const double tolerance = dips[global].value + 0.1 * (1.0 - dips[global].value);
+    // The normalisation (cumulative mean) deepens dips at longer lags a little when all dips are shallow,
+    // hence a tolerance relative to the deepest value too.
+    const double tolerance = dips[global].value + std::max(0.1 * (1.0 - dips[global].value), 0.35 * dips[global].value);
     for (std::size_t j = 0; j < global; ++j)
       if (dips[j].value <= tolerance) {
         fallback = j;
         break;
       }
     prob[fallback] += 0.01 * thr_cdf(dips[global].value);
+    // In a noisy frame (even the deepest dip is shallow) the prior has almost no mass left at the dips'
+    // values, and which multiple of the period is a hair deeper is chance: the earliest dip nearly as deep
+    // as the deepest is then the likeliest candidate (breathy voice otherwise drops an octave).
+    if (dips[global].value > kNoisyDip) {
+      const double top = *std::max_element(prob.begin(), prob.begin() + static_cast<std::ptrdiff_t>(n_dips));
+      prob[fallback] = std::max(prob[fallback], 1.5 * top);
+    }
     // Keep the most probable candidates.
     for (std::size_t k = 0; k < kMaxCandidates; ++k) {
       std::size_t best = n_dips;
