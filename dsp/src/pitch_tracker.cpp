@@ -39,7 +39,6 @@ constexpr double kFarBelowPeakDb = 6.0;          // and must be within this much
 constexpr int kSettleSmoothReach = 4;            // settled F0 averages neighbours up to 4 hops away
 constexpr double kPriorA = 2.0, kPriorB = 18.0;  // threshold prior Beta(2, 18): mean 0.1 (YIN's threshold)
 constexpr double kVoicedDip = 0.55;              // deepest dip value at which voicing evidence is 1/2
-constexpr double kNoisyDip = 0.25;               // a frame whose deepest dip is above this is noisy
 constexpr double kVoicedDipWidth = 0.05;         // and how fast the evidence changes around it
 constexpr double kCentreBelowWindowDb = 10.0;    // a frame whose middle is this much quieter than its
                                                  // window sits in a pause next to a voiced stretch
@@ -626,13 +625,6 @@ struct PitchTracker::Impl {
         break;
       }
     prob[fallback] += 0.01 * thr_cdf(dips[global].value);
-    // In a noisy frame (even the deepest dip is shallow) the prior has almost no mass left at the dips'
-    // values, and which multiple of the period is a hair deeper is chance: the earliest dip nearly as deep
-    // as the deepest is then the likeliest candidate (breathy voice otherwise drops an octave).
-    if (dips[global].value > kNoisyDip) {
-      const double top = *std::max_element(prob.begin(), prob.begin() + static_cast<std::ptrdiff_t>(n_dips));
-      prob[fallback] = std::max(prob[fallback], 1.5 * top);
-    }
     // Keep the most probable candidates.
     for (std::size_t k = 0; k < kMaxCandidates; ++k) {
       std::size_t best = n_dips;
