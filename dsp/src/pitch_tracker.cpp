@@ -304,7 +304,9 @@ struct PitchTracker::Impl {
   std::vector<float> bin_index;  // 0, 1, 2, ... as floats
   std::size_t best_voiced_bin = 0;  // voiced state with the best score after the latest step
   std::vector<double> speaker_hist;  // speaker model: decaying, level-weighted histogram of live F0 bins
-  double speaker_total = 0;
+  double speaker_total = 0;      // in units of speaker_unit, like the bins
+  double speaker_unit = 1.0;     // weight of a frame added now, relative to the stored bins
+  double speaker_decay = 1.0;    // per-frame decay, exp(-hop / kSpeakerMemoryS)
   std::vector<int> speaker_dist;            // scratch: distance to the nearest known bin
   std::vector<std::uint8_t> speaker_near;   // 1 where a bin is within kFarCents of a known bin
   std::vector<std::size_t> path_scratch;
@@ -383,6 +385,7 @@ struct PitchTracker::Impl {
     delta_new.assign(states, 0);
     arg_scratch.assign(states, 0);
     speaker_hist.assign(static_cast<std::size_t>(n_bins), 0.0);
+    speaker_decay = std::exp(-cfg.hop_ms * 1e-3 / kSpeakerMemoryS);
     speaker_dist.assign(static_cast<std::size_t>(n_bins), 0);
     speaker_near.assign(static_cast<std::size_t>(n_bins), 1);
     bin_index.resize(states);
@@ -427,6 +430,7 @@ struct PitchTracker::Impl {
     raw_history.fill(0.0);
     std::fill(speaker_hist.begin(), speaker_hist.end(), 0.0);
     speaker_total = 0;
+    speaker_unit = 1.0;
     peak_db = -200;
   }
 
@@ -759,7 +763,7 @@ struct PitchTracker::Impl {
     const auto n = static_cast<int>(speaker_hist.size());
     const double top = *std::max_element(speaker_hist.begin(), speaker_hist.end());
     const int reach = static_cast<int>(kFarCents / kBinCents);
-    if (speaker_total < kSpeakerMinWeight) {
+    if (speaker_total < kSpeakerMinWeight * speaker_unit) {
       std::fill(speaker_near.begin(), speaker_near.end(), 1);
       return;
     }
@@ -778,15 +782,21 @@ struct PitchTracker::Impl {
     }
   }
 
+  // The histogram decays by speaker_decay per frame. Only ratios between its bins matter, so instead of
+  // scaling every bin down each frame, new weights are scaled up (speaker_unit) and everything is
+  // brought back to scale once the unit grows large.
   void speaker_update(double bin, double level_db) {
-    const double decay = std::exp(-cfg.hop_ms * 1e-3 / kSpeakerMemoryS);
-    for (auto& h : speaker_hist) h *= decay;
-    speaker_total *= decay;
+    speaker_unit /= speaker_decay;
+    if (speaker_unit > 1e150) {
+      for (auto& h : speaker_hist) h /= speaker_unit;
+      speaker_total /= speaker_unit;
+      speaker_unit = 1.0;
+    }
     if (bin < 0) return;
     const double w = std::min(1.0, std::exp2((level_db - peak_db) / 1.50515));  // power re the peak, squared
     const auto b = static_cast<std::size_t>(std::clamp(std::lround(bin), 0L, static_cast<long>(n_bins - 1)));
-    speaker_hist[b] += w;
-    speaker_total += w;
+    speaker_hist[b] += w * speaker_unit;
+    speaker_total += w * speaker_unit;
   }
 
   // The candidate nearest a path's bin (within 3 bins, 75 cents), or n_cand when there is none.
