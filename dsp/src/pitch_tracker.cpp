@@ -29,12 +29,12 @@ constexpr double kHighpassHz = 40.0;         // DC and rumble
 constexpr double kHumMaxHz = 1000.0;         // highest mains harmonic cancelled
 constexpr std::size_t kMaxCandidates = 8;
 constexpr std::size_t kThresholds = 100;     // resolution of the threshold prior's table
-constexpr double kLevelGateBelowPeakDb = 22.0;
-constexpr double kPeakDecayDbPerS = 3.0;
+constexpr double kLevelGateBelowPeakDb = 22.0;   // periodic frames this far under the recent peak are background
+constexpr double kPeakDecayDbPerS = 3.0;         // and how fast that peak forgets
 constexpr double kSpeakerMemoryS = 30.0;         // speaker model: how long the voice's registers are remembered
 constexpr double kSpeakerKnownShare = 0.1;      // a bin with this share of the fullest one is a known register
 constexpr double kSpeakerMinWeight = 20.0;       // and how much must be heard (peak-level frames) first
-constexpr double kFarCents = 1000.0;             // a candidate this far from the voice's centre is "far"
+constexpr double kFarCents = 1000.0;             // a candidate this far from every known register is "far"
 constexpr double kFarBelowPeakDb = 6.0;          // and must be within this much of the recent peak level
 constexpr int kSettleSmoothReach = 4;            // settled F0 averages neighbours up to 4 hops away
 constexpr double kPriorA = 2.0, kPriorB = 18.0;  // threshold prior Beta(2, 18): mean 0.1 (YIN's threshold)
