@@ -77,8 +77,9 @@ TEST(PitchTracker, PulseTrainWithA6p6msPeriodReads151p5Hz) {
 }
 
 TEST(PitchTracker, EqualTemperedSineTonesA2ToC6WithinTwoCents) {
-  // Equal temperament with A4 = 440 Hz (ISO 16:1975): MIDI 45 (A2, 110 Hz) .. 84 (C6, 1046.5 Hz).
-  for (double fs : {16000.0, 44100.0, 48000.0}) {
+  // Equal temperament with A4 = 440 Hz (ISO 16:1975): MIDI 45 (A2, 110 Hz) .. 84 (C6, 1046.5 Hz), at the
+  // lowest and highest rates taken as well as the usual ones.
+  for (double fs : {8000.0, 16000.0, 22050.0, 44100.0, 48000.0, 96000.0}) {
     for (int midi = 45; midi <= 84; ++midi) {
       const double f = hz_from_midi(midi);
       SCOPED_TRACE(testing::Message() << note_name(midi) << " " << f << " Hz at " << fs);
