@@ -570,7 +570,7 @@ struct PitchTracker::Impl {
       cmnd[tau] = running > 0 ? d * static_cast<double>(tau) / running : 1.0;
     }
 
-    // Local minima of the CMNDF within the search range, refined by parabolic interpolation.
+    // Local minima of the CMNDF within the search range, refined to a fraction of a sample.
     struct Dip {
       double tau, value;
     };

@@ -2,15 +2,17 @@
 //
 // Thread contract: a PitchTracker is used by one thread at a time (the analysis thread in the daemon,
 // the main thread in `pitchwire analyze`). It allocates everything in its constructor; process() and
-// flush() allocate nothing and never block.
+// flush() allocate nothing of their own (libsoxr keeps its own buffers) and never block.
 //
 // Pipeline per input block (any size, 1..8192 samples or more):
 //   input -> [resample to the analysis rate, libsoxr] -> DC/rumble high-pass -> mains hum canceller
 //         -> low-pass (analysis band) -> per hop: YIN difference function through an FFT (KissFFT),
-//            candidate periods with probabilities (a distribution over thresholds, as probabilistic YIN)
+//            candidate periods with probabilities (a distribution over thresholds, as probabilistic YIN),
+//            voicing evidence from the deepest dip through level gates and a speaker model
 //         -> HMM over 25-cent pitch bins plus an unvoiced state, decoded by max-product (Viterbi): the best
 //            path ending at the newest frame gives the live value at once (zero lag), the same path
-//            traced back `settle_ms` gives the settled value (fixed-lag Viterbi).
+//            traced back `settle_ms` gives the settled value (fixed-lag Viterbi), averaged with its
+//            neighbours up to 20 ms away.
 // Frames are the same whatever the block sizes (tested).
 #pragma once
 
