@@ -2,6 +2,7 @@
 //
 // Thread contract: any thread; no shared state.
 #include "pitchwire/protocol/encode.h"
+#include "pitchwire/protocol/number_text.h"
 
 #include <algorithm>
 #include <charconv>
@@ -11,29 +12,11 @@
 namespace pitchwire::protocol {
 namespace {
 
-// Appends value with a fixed number of decimals; null when absent or not finite (JSON has no NaN).
-void append_fixed(std::string& out, std::optional<double> value, int decimals) {
-  std::array<char, 48> buf{};
-  if (value && std::isfinite(*value)) {
-    const auto [end, ec] =
-        std::to_chars(buf.data(), buf.data() + buf.size(), *value, std::chars_format::fixed, decimals);
-    if (ec == std::errc()) {
-      out.append(buf.data(), end);
-      return;
-    }
-  }
-  out += "null";
-}
-
 template <typename Integer>
 void append_integer(std::string& out, Integer value) {
   std::array<char, 24> buf{};
   const auto [end, ec] = std::to_chars(buf.data(), buf.data() + buf.size(), value);
   out.append(buf.data(), ec == std::errc() ? end : buf.data());
-}
-
-std::optional<double> widen(const std::optional<float>& v) {
-  return v ? std::optional<double>(static_cast<double>(*v)) : std::nullopt;
 }
 
 void append_index_and_time(std::string& out, std::int64_t index, double time_s) {
@@ -209,6 +192,19 @@ std::string encode_request(const Request& request) {
     if (m->data.is_object()) j["data"] = m->data;
   }
   return j.dump(-1, ' ', false, Json::error_handler_t::replace);
+}
+
+void append_fixed(std::string& out, std::optional<double> value, int decimals, std::string_view missing) {
+  std::array<char, 48> buf{};
+  if (value && std::isfinite(*value)) {
+    const auto [end, ec] =
+        std::to_chars(buf.data(), buf.data() + buf.size(), *value, std::chars_format::fixed, decimals);
+    if (ec == std::errc()) {
+      out.append(buf.data(), end);
+      return;
+    }
+  }
+  out += missing;
 }
 
 }  // namespace pitchwire::protocol

@@ -2,7 +2,8 @@
 //
 // Fields, in this order: time_s (6 decimals), f0_hz and f0_live_hz (3 decimals; empty in CSV and
 // null in JSON when unvoiced), voicing and confidence (3 decimals), level_dbfs (2 decimals).
-// Numbers are written with std::to_chars: no locale, a full stop as decimal separator.
+// Numbers are written with protocol::append_fixed (std::to_chars): no locale, a full stop as decimal
+// separator, the same text as the protocol's frames.
 #pragma once
 
 #include <string>
