@@ -15,6 +15,7 @@
 #include "frame_format.h"
 #include "output.h"
 #include "pitchwire/dsp/pitch_tracker.h"
+#include "pitchwire/dsp/range_stats.h"
 #include "pitchwire/dsp/units.h"
 #include "pitchwire/dsp/voice_synth.h"
 
@@ -51,14 +52,6 @@ class CollectSink final : public dsp::FrameSink {
   Output* csv_;
   std::string line_;
 };
-
-// Percentile of sorted values, linear between closest ranks (Hyndman and Fan 1996, definition 7).
-double percentile(const std::vector<double>& sorted, double p) {
-  const double h = (static_cast<double>(sorted.size()) - 1.0) * p;
-  const auto lo = static_cast<std::size_t>(std::floor(h));
-  const std::size_t hi = std::min(lo + 1, sorted.size() - 1);
-  return sorted[lo] + (h - static_cast<double>(lo)) * (sorted[hi] - sorted[lo]);
-}
 
 std::string format(const char* fmt, ...) __attribute__((format(printf, 1, 2)));
 std::string format(const char* fmt, ...) {
@@ -119,7 +112,7 @@ int run_demo(const DemoOptions& options) {
       if (std::abs(dsp::cents(static_cast<double>(*frame.f0_hz), truth_hz)) <= kAgreementCents) ++within;
     }
   }
-  std::sort(f0.begin(), f0.end());
+  const std::optional<dsp::F0Range> range = dsp::f0_range(f0);
   const auto share = [](std::size_t part, std::size_t whole) {
     return whole == 0 ? 0.0 : 100.0 * static_cast<double>(part) / static_cast<double>(whole);
   };
@@ -132,17 +125,14 @@ int run_demo(const DemoOptions& options) {
   text += format("  duration               %.2f s (%zu frames)\n", duration_s, sink.frames.size());
   text += format("  voiced time            %.2f s (%.1f %% of the frames)\n",
                  static_cast<double>(f0.size()) * hop_s, share(f0.size(), sink.frames.size()));
-  if (f0.empty()) {
+  if (!range) {
     text += "  median F0              no voiced frames\n";
   } else {
-    const double median = percentile(f0, 0.50);
-    const double p5 = percentile(f0, 0.05);
-    const double p95 = percentile(f0, 0.95);
-    const dsp::NoteReading note = dsp::nearest_note(median);
-    text += format("  median F0              %.1f Hz (%s %+.0f cents)\n", median, note.name.c_str(),
+    const dsp::NoteReading note = dsp::nearest_note(range->median_hz);
+    text += format("  median F0              %.1f Hz (%s %+.0f cents)\n", range->median_hz, note.name.c_str(),
                    note.cents_off);
-    text += format("  F0 range, p5 to p95    %.1f Hz to %.1f Hz (%.1f semitones wide)\n", p5, p95,
-                   dsp::semitones(p95, p5));
+    text += format("  F0 range, p5 to p95    %.1f Hz to %.1f Hz (%.1f semitones wide)\n", range->p5_hz,
+                   range->p95_hz, range->p5_p95_semitones);
   }
   text += "\n  settled track against the synthesizer's truth:\n";
   text += format("  F0 within %.0f cents     %.1f %% of the %zu frames voiced in both\n", kAgreementCents,
