@@ -13,25 +13,8 @@ gtest_discover_tests(pitchwire_protocol_tests DISCOVERY_TIMEOUT 60 PROPERTIES LA
 add_executable(pitchwire_protocol_samples ${CMAKE_CURRENT_LIST_DIR}/protocol_samples.cpp)
 target_link_libraries(pitchwire_protocol_samples PRIVATE pitchwire::protocol pitchwire_options)
 
-# Debian's python3 carries Debian's python packages; another python3 first on PATH may not.
-if(NOT PITCHWIRE_SCHEMA_PYTHON)
-  find_program(_pw_schema_debian_python python3 PATHS /usr/bin NO_DEFAULT_PATH)
-  find_program(_pw_schema_path_python python3)
-  foreach(candidate IN ITEMS "${_pw_schema_debian_python}" "${_pw_schema_path_python}")
-    if(candidate)
-      execute_process(COMMAND "${candidate}" -c "import jsonschema, yaml" RESULT_VARIABLE rc OUTPUT_QUIET ERROR_QUIET)
-      if(rc EQUAL 0)
-        set(PITCHWIRE_SCHEMA_PYTHON "${candidate}" CACHE FILEPATH "python3 with jsonschema and yaml for protocol.schemas")
-        break()
-      endif()
-    endif()
-  endforeach()
-  if(NOT PITCHWIRE_SCHEMA_PYTHON)
-    message(FATAL_ERROR "The protocol schema test needs python3 with jsonschema and yaml: install the Debian packages "
-                        "python3-jsonschema and python3-yaml (apt-get install python3-jsonschema python3-yaml), "
-                        "set PITCHWIRE_SCHEMA_PYTHON, or configure with -DPITCHWIRE_BUILD_TESTS=OFF.")
-  endif()
-endif()
+pitchwire_find_python(PITCHWIRE_SCHEMA_PYTHON "jsonschema, yaml" "python3-jsonschema python3-yaml"
+                      "The protocol schema test")
 
 add_test(NAME protocol.schemas
   COMMAND "${PITCHWIRE_SCHEMA_PYTHON}" "${CMAKE_CURRENT_LIST_DIR}/check_schemas.py"
