@@ -28,4 +28,19 @@ std::optional<F0Range> f0_range(std::span<double> f0_hz) {
   return r;
 }
 
+std::optional<double> f0_sd_semitones(std::span<const double> f0_hz) {
+  if (f0_hz.size() < 2) return std::nullopt;
+  // Semitones re the first value keep the numbers small; the SD does not depend on the reference.
+  const double ref = f0_hz.front();
+  double sum = 0.0, sum_sq = 0.0;
+  for (const double f : f0_hz) {
+    const double s = semitones(f, ref);
+    sum += s;
+    sum_sq += s * s;
+  }
+  const double n = static_cast<double>(f0_hz.size());
+  const double mean = sum / n;
+  return std::sqrt(std::max(0.0, sum_sq / n - mean * mean));
+}
+
 }  // namespace pitchwire::dsp

@@ -46,3 +46,27 @@ TEST(RangeStats, NoVoicedFramesNoRange) {
 
 }  // namespace
 }  // namespace pitchwire::dsp
+
+// A sine vibrato of depth +-d semitones sampled evenly over whole cycles has a population SD of d/sqrt(2)
+// (the RMS of a sine is its amplitude / sqrt(2), common practice). 5.5 Hz vibrato of +-0.5 st around A3.
+TEST(RangeStats, SineVibratoOfKnownDepthHasAKnownSd) {
+  constexpr double kDepthSt = 0.5;
+  constexpr double kRateHz = 5.5;
+  constexpr double kHopS = 0.005;
+  std::vector<double> f0;
+  const int n = static_cast<int>(std::lround(4.0 / kRateHz / kHopS));  // 4 whole cycles: 800/1.1 hops
+  for (int i = 0; i < n; ++i) {
+    const double t = i * (4.0 / kRateHz) / n;  // evenly spaced over exactly 4 cycles
+    f0.push_back(pitchwire::dsp::hz_from_semitones(kDepthSt * std::sin(2.0 * M_PI * kRateHz * t), 220.0));
+  }
+  const auto sd = pitchwire::dsp::f0_sd_semitones(f0);
+  ASSERT_TRUE(sd.has_value());
+  EXPECT_NEAR(*sd, kDepthSt / std::sqrt(2.0), 1e-9);
+}
+
+TEST(RangeStats, SdOfASteadyToneIsZeroAndNeedsTwoValues) {
+  const std::vector<double> steady(100, 196.0);
+  EXPECT_NEAR(pitchwire::dsp::f0_sd_semitones(steady).value(), 0.0, 1e-12);
+  const std::vector<double> one{196.0};
+  EXPECT_FALSE(pitchwire::dsp::f0_sd_semitones(one).has_value());
+}

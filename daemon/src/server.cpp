@@ -1,0 +1,1031 @@
+// server.cpp: the HTTP + WebSocket server and publisher of pitchwired (see server.h). The only
+// translation unit that includes Boost.Beast.
+//
+// Thread contract:
+//   analysis thread   Server::on_live/on_settled/on_stats/on_event/on_end: encode once, post one job.
+//   monitor thread    Server::on_device_lost/on_device_back: build the event, post one job.
+//   network thread(s) everything else. Each WebSocket connection runs on its own strand; the shared
+//                     state (connection registry, bands, exercise) is guarded by small mutexes that are
+//                     never held across I/O.
+#include "pitchwire/daemon/server.h"
+
+#include <algorithm>
+#include <array>
+#include <atomic>
+#include <chrono>
+#include <deque>
+#include <mutex>
+#include <optional>
+#include <thread>
+#include <unordered_set>
+#include <vector>
+
+#include <boost/asio.hpp>
+#include <boost/beast/core.hpp>
+#include <boost/beast/http.hpp>
+#include <boost/beast/websocket.hpp>
+#include <spdlog/spdlog.h>
+
+#include "pitchwire/protocol/encode.h"
+
+namespace pitchwire::daemon {
+
+namespace beast = boost::beast;
+namespace http = beast::http;
+namespace websocket = beast::websocket;
+namespace net = boost::asio;
+using tcp = net::ip::tcp;
+using Clock = std::chrono::steady_clock;
+
+namespace {
+
+constexpr auto kHttpTimeout = std::chrono::seconds(15);
+// WebSocket keep-alive: a ping after half of this without traffic from the peer, closed after all of it.
+constexpr auto kIdleTimeout = std::chrono::seconds(30);
+constexpr auto kHandshakeTimeout = std::chrono::seconds(10);
+// Replies and events are never dropped; a connection that lets this many of them pile up is closed.
+constexpr std::size_t kMaxQueuedReplies = 512;
+// How long a connection may take to complete its closing handshake before its socket is shut.
+constexpr auto kCloseGrace = std::chrono::milliseconds(500);
+// A client that keeps sending after this many refused requests in a row is closed (1008).
+constexpr int kMaxRefusedInARow = 100;
+constexpr std::size_t kMaxBands = 16;
+constexpr std::size_t kMaxHttpHeaderBytes = 8 * 1024;
+// A second Sec-WebSocket-Protocol entry may carry the token: "pitchwire.token.<hex>".
+constexpr std::string_view kTokenProtocolPrefix = "pitchwire.token.";
+
+protocol::FieldSet field_set_from_bits(unsigned bits) {
+  protocol::FieldSet set = protocol::FieldSet::none();
+  for (unsigned f = 0; f < protocol::kFrameFieldNames.size(); ++f) {
+    if (bits & (1u << f)) set = set.with(static_cast<protocol::FrameField>(f));
+  }
+  return set;
+}
+
+// Frames of one hop, encoded once per field set in use (index = FieldSet::bits()).
+struct FrameBatch {
+  dsp::LiveFrame frame;
+  std::array<std::shared_ptr<const std::string>, 16> bodies;
+};
+
+struct SettledBatch {
+  std::int64_t index = 0;
+  std::string body;
+};
+
+// Any other server message, encoded once and shared by every connection it goes to.
+struct SharedMessage {
+  protocol::Encoded encoded;
+};
+
+std::string lower(std::string_view s) {
+  std::string out(s);
+  std::transform(out.begin(), out.end(), out.begin(), [](unsigned char c) { return static_cast<char>(std::tolower(c)); });
+  return out;
+}
+
+std::string_view trim(std::string_view s) {
+  while (!s.empty() && (s.front() == ' ' || s.front() == '\t')) s.remove_prefix(1);
+  while (!s.empty() && (s.back() == ' ' || s.back() == '\t')) s.remove_suffix(1);
+  return s;
+}
+
+// The value of `key` in a query string ("a=1&token=abc"), without percent-decoding (tokens are hex).
+std::string query_value(std::string_view target, std::string_view key) {
+  const auto q = target.find('?');
+  if (q == std::string_view::npos) return {};
+  std::string_view rest = target.substr(q + 1);
+  while (!rest.empty()) {
+    const auto amp = rest.find('&');
+    const std::string_view pair = rest.substr(0, amp);
+    const auto eq = pair.find('=');
+    if (eq != std::string_view::npos && pair.substr(0, eq) == key) return std::string(pair.substr(eq + 1));
+    if (amp == std::string_view::npos) break;
+    rest.remove_prefix(amp + 1);
+  }
+  return {};
+}
+
+std::string_view path_of(std::string_view target) { return target.substr(0, target.find('?')); }
+
+const char* mime_type(const std::filesystem::path& path) {
+  const std::string ext = lower(path.extension().string());
+  if (ext == ".html" || ext == ".htm") return "text/html; charset=utf-8";
+  if (ext == ".js" || ext == ".mjs") return "text/javascript; charset=utf-8";
+  if (ext == ".css") return "text/css; charset=utf-8";
+  if (ext == ".json") return "application/json";
+  if (ext == ".svg") return "image/svg+xml";
+  if (ext == ".png") return "image/png";
+  if (ext == ".ico") return "image/x-icon";
+  if (ext == ".woff2") return "font/woff2";
+  if (ext == ".txt") return "text/plain; charset=utf-8";
+  return "application/octet-stream";
+}
+
+// Percent-decodes a URL path. Empty when it holds a malformed escape, an encoded slash or backslash, or
+// a NUL: those never name a file of ours, and refusing them closes the usual tricks to leave web_root.
+std::optional<std::string> decode_path(std::string_view path) {
+  std::string out;
+  for (std::size_t i = 0; i < path.size(); ++i) {
+    char c = path[i];
+    if (c == '%') {
+      if (i + 2 >= path.size()) return std::nullopt;
+      auto hex = [](char h) -> int {
+        if (h >= '0' && h <= '9') return h - '0';
+        if (h >= 'a' && h <= 'f') return h - 'a' + 10;
+        if (h >= 'A' && h <= 'F') return h - 'A' + 10;
+        return -1;
+      };
+      const int hi = hex(path[i + 1]), lo = hex(path[i + 2]);
+      if (hi < 0 || lo < 0) return std::nullopt;
+      c = static_cast<char>(hi * 16 + lo);
+      if (c == '/' || c == '\\' || c == '\0') return std::nullopt;
+      i += 2;
+    } else if (c == '\\' || c == '\0') {
+      return std::nullopt;
+    }
+    out.push_back(c);
+  }
+  return out;
+}
+
+}  // namespace
+
+bool tokens_equal(std::string_view presented, std::string_view expected) {
+  // Always walk the expected token's length; fold in the length difference.
+  unsigned diff = presented.size() == expected.size() ? 0u : 1u;
+  for (std::size_t i = 0; i < expected.size(); ++i) {
+    const char p = i < presented.size() ? presented[i] : '\0';
+    diff |= static_cast<unsigned>(static_cast<unsigned char>(p) ^ static_cast<unsigned char>(expected[i]));
+  }
+  return diff == 0 && !expected.empty();
+}
+
+class WsSession;
+
+struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
+  explicit Impl(ServerOptions o) : options(std::move(o)), acceptor(ioc) {}
+
+  ServerOptions options;
+  net::io_context ioc;
+  tcp::acceptor acceptor;
+  std::vector<std::thread> threads;
+  std::optional<net::executor_work_guard<net::io_context::executor_type>> work;
+  int bound_port = 0;
+  std::atomic<bool> stopping{false};
+  std::atomic<bool> input_ended{false};
+  std::vector<std::string> allowed_hosts;    // "127.0.0.1:7350", "localhost:7350", "[::1]:7350"
+  std::vector<std::string> allowed_origins;  // "http://" + each allowed host
+
+  // Connections, for fan-out (any thread may read under the mutex; sessions add and remove themselves).
+  mutable std::mutex sessions_mutex;
+  std::vector<std::weak_ptr<WsSession>> sessions;
+  std::atomic<std::size_t> session_count{0};
+  // Field sets in use by subscriptions: count per FieldSet::bits(); the analysis thread encodes those.
+  std::array<std::atomic<int>, 16> field_set_users{};
+
+  // Shared session state: bands and the running exercise.
+  std::mutex state_mutex;
+  std::vector<protocol::Band> bands;
+  std::optional<protocol::Exercise> exercise;
+  std::int64_t exercise_start_frames = 0, exercise_start_voiced = 0;
+  // Settled frames seen and voiced ones (analysis thread writes, exercise summaries read).
+  std::atomic<std::int64_t> settled_frames{0};
+  std::atomic<std::int64_t> voiced_frames{0};
+
+  double now_audio() const { return options.audio_clock ? options.audio_clock() : 0.0; }
+
+  void fan_out_frame(const std::shared_ptr<const FrameBatch>& batch);
+  void fan_out_settled(const std::shared_ptr<const SettledBatch>& batch);
+  void broadcast(const protocol::Encoded& message);
+  void broadcast_event(const protocol::Event& event) { broadcast(protocol::encode(event)); }
+  std::vector<std::shared_ptr<WsSession>> snapshot();
+  void add_session(const std::shared_ptr<WsSession>& s);
+  void remove_session(const WsSession* s);
+  void do_accept();
+  bool host_allowed(std::string_view host) const {
+    const std::string h = lower(host);
+    return std::find(allowed_hosts.begin(), allowed_hosts.end(), h) != allowed_hosts.end();
+  }
+  bool origin_allowed(std::string_view origin) const {
+    const std::string o = lower(origin);
+    return std::find(allowed_origins.begin(), allowed_origins.end(), o) != allowed_origins.end();
+  }
+};
+
+// ---- WebSocket connection -----------------------------------------------------------------------------
+
+class WsSession : public std::enable_shared_from_this<WsSession> {
+ public:
+  WsSession(tcp::socket&& socket, std::shared_ptr<Server::Impl> server, protocol::Role role)
+      : ws_(std::move(socket)), server_(std::move(server)), role_(role),
+        close_timer_(ws_.get_executor()) {
+    tokens_ = server_->options.request_burst;
+    last_refill_ = Clock::now();
+  }
+
+  ~WsSession() {
+    if (subscribed_) server_->field_set_users[fields_.bits()].fetch_sub(1);
+  }
+
+  protocol::Role role() const { return role_; }
+
+  // Network thread, right after the HTTP upgrade request was checked.
+  void run(http::request<http::string_body> request) {
+    websocket::stream_base::timeout timeouts{};
+    timeouts.handshake_timeout = kHandshakeTimeout;
+    timeouts.idle_timeout = kIdleTimeout;
+    timeouts.keep_alive_pings = true;
+    ws_.set_option(timeouts);
+    ws_.set_option(websocket::stream_base::decorator([](websocket::response_type& res) {
+      res.set(http::field::server, "pitchwired/" PITCHWIRE_VERSION);
+      res.set(http::field::sec_websocket_protocol, std::string(protocol::kSubprotocol));
+    }));
+    ws_.read_message_max(server_->options.max_message_bytes);
+    ws_.auto_fragment(false);
+    // Every message is text; binary frames from the client are refused in on_read.
+    ws_.text(true);
+    net::dispatch(ws_.get_executor(), [self = shared_from_this(), req = std::move(request)]() mutable {
+      self->ws_.async_accept(req, beast::bind_front_handler(&WsSession::on_accept, self));
+    });
+  }
+
+  // ---- called through post() on this session's strand ----
+
+  void deliver_frame(const std::shared_ptr<const FrameBatch>& batch) {
+    if (!subscribed_ || closing_) return;
+    if (!protocol::passes(batch->frame.index, decimation_)) return;
+    std::shared_ptr<const std::string> body = batch->bodies[fields_.bits()];
+    if (!body) {
+      // Subscribed between the encoding and now: encode for this connection alone.
+      body = std::make_shared<const std::string>(protocol::encode_frame(batch->frame, fields_).body);
+    }
+    push_frame(protocol::ServerType::kFrame, body, body->data(), body->size());
+  }
+
+  void deliver_settled(const std::shared_ptr<const SettledBatch>& batch) {
+    if (!subscribed_ || !settled_ || closing_) return;
+    if (!protocol::passes(batch->index, decimation_)) return;
+    push_frame(protocol::ServerType::kSettled, batch, batch->body.data(), batch->body.size());
+  }
+
+  void deliver(const std::shared_ptr<const SharedMessage>& message) {
+    if (closing_) return;
+    push_reply(message->encoded.type, message, message->encoded.body);
+  }
+
+  // Closes with `code` and `reason`. With drain, what is queued is sent first (a daemon that stops or
+  // whose input ended); without, it is discarded (a client being thrown out). Either way the socket is
+  // shut if the closing handshake has not completed within kCloseGrace.
+  void close(websocket::close_code code, std::string reason, bool drain = false) {
+    if (closing_) return;
+    closing_ = true;
+    close_reason_ = websocket::close_reason(code, reason);
+    close_timer_.expires_after(kCloseGrace);
+    close_timer_.async_wait([self = shared_from_this()](beast::error_code ec) {
+      if (!ec) beast::get_lowest_layer(self->ws_).close();  // the peer did not finish in time
+    });
+    if (!drain) {
+      // Keep the message being written: its buffers are in use until on_write.
+      while (queue_.size() > (writing_ ? 1u : 0u)) queue_.pop_back();
+    }
+    if (!writing_ && queue_.empty()) start_close();
+  }
+
+ private:
+  struct Outgoing {
+    Outgoing(protocol::ServerType type, std::uint64_t seq, std::shared_ptr<const void> keep, std::string_view text,
+             bool may_drop)
+        : head(type, seq), owner(std::move(keep)), body(text), droppable(may_drop) {}
+    protocol::MessageHead head;          // `{"type":"...","seq":N`
+    std::shared_ptr<const void> owner;   // keeps `body` alive
+    std::string_view body;
+    bool droppable;
+  };
+
+  void on_accept(beast::error_code ec) {
+    if (ec) {
+      spdlog::debug("websocket handshake failed: {}", ec.message());
+      return;
+    }
+    server_->add_session(shared_from_this());
+    protocol::Hello hello = server_->options.hello;
+    hello.role = role_;
+    hello.max_message_bytes = server_->options.max_message_bytes;
+    {
+      std::lock_guard lock(server_->state_mutex);
+      hello.bands = server_->bands;
+      hello.exercise = server_->exercise;
+    }
+    send_own(protocol::encode(hello));
+    do_read();
+  }
+
+  void do_read() {
+    ws_.async_read(read_buffer_, beast::bind_front_handler(&WsSession::on_read, shared_from_this()));
+  }
+
+  void on_read(beast::error_code ec, std::size_t) {
+    if (ec) {
+      if (ec == websocket::error::message_too_big) {
+        // Beast has already failed the connection with close code 1009 (message too big).
+        spdlog::info("client closed: message larger than {} bytes", server_->options.max_message_bytes);
+      } else if (ec != websocket::error::closed && ec != net::error::operation_aborted) {
+        spdlog::debug("client read ended: {}", ec.message());
+      }
+      finish();
+      return;
+    }
+    if (!ws_.got_text()) {
+      close(websocket::close_code::unknown_data, "binary messages are not part of pitchwire.v1");
+      return;
+    }
+    const std::string text = beast::buffers_to_string(read_buffer_.data());
+    read_buffer_.consume(read_buffer_.size());
+    handle_text(text);
+    if (!closing_) do_read();
+  }
+
+  bool take_request_token() {
+    const auto now = Clock::now();
+    const double elapsed = std::chrono::duration<double>(now - last_refill_).count();
+    last_refill_ = now;
+    tokens_ = std::min(server_->options.request_burst, tokens_ + elapsed * server_->options.requests_per_s);
+    if (tokens_ < 1.0) return false;
+    tokens_ -= 1.0;
+    return true;
+  }
+
+  void refuse(protocol::Error error) {
+    send_own(protocol::encode(error));
+    if (++refused_in_a_row_ > kMaxRefusedInARow) close(websocket::close_code::policy_error, "too many refused requests");
+  }
+
+  void handle_text(const std::string& text) {
+    using protocol::ErrorCode;
+    protocol::DecodeOptions decode_options;
+    decode_options.max_message_bytes = server_->options.max_message_bytes;
+    decode_options.reference_hz = server_->options.hello.reference_hz;
+    decode_options.f0_min_hz = server_->options.hello.f0_min_hz;
+    decode_options.f0_max_hz = server_->options.hello.f0_max_hz;
+    protocol::Decoded decoded = protocol::decode_request(text, decode_options);
+    if (auto* error = std::get_if<protocol::Error>(&decoded)) {
+      refuse(std::move(*error));
+      return;
+    }
+    auto& request = std::get<protocol::Request>(decoded);
+    const std::string& id = protocol::id_of(request);
+    if (!take_request_token()) {
+      refuse({ErrorCode::kRateLimited,
+              "too many requests: at most " + std::to_string(server_->options.requests_per_s) + " per second", id});
+      return;
+    }
+    const protocol::ClientType type = protocol::type_of(request);
+    const bool needs_supervisor = type == protocol::ClientType::kSetBand || type == protocol::ClientType::kClearBand ||
+                                  type == protocol::ClientType::kStartExercise ||
+                                  type == protocol::ClientType::kEndExercise;
+    if (needs_supervisor && role_ != protocol::Role::kSupervisor) {
+      refuse({ErrorCode::kForbidden,
+              std::string(protocol::name(type)) + " needs the supervisor role; this connection is " +
+                  std::string(protocol::name(role_)),
+              id});
+      return;
+    }
+    if (type == protocol::ClientType::kMark && role_ == protocol::Role::kObserver) {
+      refuse({ErrorCode::kForbidden, "mark needs the lab or supervisor role; this connection is observer", id});
+      return;
+    }
+    refused_in_a_row_ = 0;
+    std::visit([this](auto& r) { handle(r); }, request);
+  }
+
+  void handle(protocol::Subscribe& r) {
+    if (subscribed_) server_->field_set_users[fields_.bits()].fetch_sub(1);
+    subscribed_ = true;
+    fields_ = r.fields;
+    settled_ = r.settled;
+    decimation_ = protocol::decimation(r.rate, server_->options.hello.hop_ms);
+    server_->field_set_users[fields_.bits()].fetch_add(1);
+    send_own(protocol::encode(protocol::subscribe_ack(r, server_->options.hello.hop_ms)));
+  }
+
+  void handle(protocol::Ping& r) {
+    protocol::Pong pong{r.id, server_->now_audio()};
+    send_own(protocol::encode(pong));
+  }
+
+  void handle(protocol::Mark& r) {
+    const protocol::Event event = protocol::marker_event(server_->now_audio(), r);
+    ack(r.id, protocol::ClientType::kMark);
+    server_->broadcast_event(event);
+  }
+
+  void handle(protocol::SetBand& r) {
+    std::vector<protocol::Band> bands;
+    {
+      std::lock_guard lock(server_->state_mutex);
+      auto it = std::find_if(server_->bands.begin(), server_->bands.end(),
+                             [&](const protocol::Band& b) { return b.name == r.band.name; });
+      if (it != server_->bands.end()) {
+        *it = r.band;
+      } else if (server_->bands.size() >= kMaxBands) {
+        refuse({protocol::ErrorCode::kOutOfRange,
+                "at most " + std::to_string(kMaxBands) + " bands; clear one before adding \"" + r.band.name + "\"",
+                r.id});
+        return;
+      } else {
+        server_->bands.push_back(r.band);
+      }
+      bands = server_->bands;
+    }
+    ack(r.id, protocol::ClientType::kSetBand);
+    server_->broadcast_event(protocol::band_changed_event(server_->now_audio(), r.band.name, bands));
+  }
+
+  void handle(protocol::ClearBand& r) {
+    std::vector<protocol::Band> bands;
+    {
+      std::lock_guard lock(server_->state_mutex);
+      auto it = std::find_if(server_->bands.begin(), server_->bands.end(),
+                             [&](const protocol::Band& b) { return b.name == r.name; });
+      if (it == server_->bands.end()) {
+        refuse({protocol::ErrorCode::kUnknownBand, "no band named \"" + r.name + "\"", r.id});
+        return;
+      }
+      server_->bands.erase(it);
+      bands = server_->bands;
+    }
+    ack(r.id, protocol::ClientType::kClearBand);
+    server_->broadcast_event(protocol::band_changed_event(server_->now_audio(), r.name, bands));
+  }
+
+  void handle(protocol::StartExercise& r) {
+    const auto& presets = server_->options.presets;
+    if (std::find(presets.begin(), presets.end(), r.preset) == presets.end()) {
+      std::string known;
+      for (const auto& p : presets) known += (known.empty() ? "" : ", ") + p;
+      refuse({protocol::ErrorCode::kUnknownPreset, "no exercise preset \"" + r.preset + "\"; known: " + known, r.id});
+      return;
+    }
+    protocol::Exercise exercise{r.preset, r.label, server_->now_audio()};
+    {
+      std::lock_guard lock(server_->state_mutex);
+      if (server_->exercise) {
+        refuse({protocol::ErrorCode::kExerciseRunning,
+                "exercise \"" + server_->exercise->preset + "\" is running; end it first", r.id});
+        return;
+      }
+      server_->exercise = exercise;
+      server_->exercise_start_frames = server_->settled_frames.load();
+      server_->exercise_start_voiced = server_->voiced_frames.load();
+    }
+    ack(r.id, protocol::ClientType::kStartExercise);
+    server_->broadcast_event(protocol::exercise_started_event(exercise.started_s, exercise));
+  }
+
+  void handle(protocol::EndExercise& r) {
+    protocol::Exercise exercise;
+    std::int64_t frames = 0, voiced = 0;
+    {
+      std::lock_guard lock(server_->state_mutex);
+      if (!server_->exercise) {
+        refuse({protocol::ErrorCode::kNoExercise, "no exercise is running", r.id});
+        return;
+      }
+      exercise = *server_->exercise;
+      server_->exercise.reset();
+      frames = server_->settled_frames.load() - server_->exercise_start_frames;
+      voiced = server_->voiced_frames.load() - server_->exercise_start_voiced;
+    }
+    const double hop_s = server_->options.hello.hop_ms / 1000.0;
+    const double now = server_->now_audio();
+    protocol::Json summary{{"duration_s", now - exercise.started_s},
+                           {"settled_s", static_cast<double>(frames) * hop_s},
+                           {"voiced_s", static_cast<double>(voiced) * hop_s},
+                           {"voiced_fraction", frames > 0 ? static_cast<double>(voiced) / static_cast<double>(frames) : 0.0}};
+    ack(r.id, protocol::ClientType::kEndExercise);
+    server_->broadcast_event(protocol::exercise_ended_event(now, exercise, std::move(summary)));
+  }
+
+  void ack(const std::string& id, protocol::ClientType type) {
+    protocol::Ack a;
+    a.id = id;
+    a.request = type;
+    send_own(protocol::encode(a));
+  }
+
+  void send_own(protocol::Encoded encoded) {
+    auto message = std::make_shared<SharedMessage>(SharedMessage{std::move(encoded)});
+    push_reply(message->encoded.type, message, message->encoded.body);
+  }
+
+  void push_reply(protocol::ServerType type, std::shared_ptr<const void> owner, std::string_view body) {
+    if (closing_) return;
+    if (queue_.size() - queued_frames_ >= kMaxQueuedReplies) {
+      close(websocket::close_code::policy_error, "too slow: messages not read");
+      return;
+    }
+    queue_.emplace_back(type, next_seq_++, std::move(owner), body, false);
+    maybe_write();
+  }
+
+  void push_frame(protocol::ServerType type, std::shared_ptr<const void> owner, const char* data, std::size_t size) {
+    if (queued_frames_ >= server_->options.queue_frames) {
+      // Newest wins: drop the oldest frame that is not being written. Its seq becomes a gap.
+      const auto first = queue_.begin() + (writing_ ? 1 : 0);
+      auto victim = std::find_if(first, queue_.end(), [](const Outgoing& o) { return o.droppable; });
+      if (victim != queue_.end()) {
+        queue_.erase(victim);
+        --queued_frames_;
+        ++dropped_unreported_;
+        ++dropped_total_;
+        const auto now = Clock::now();
+        if (!behind_since_) behind_since_ = now;
+        if (now - *behind_since_ > std::chrono::duration<double>(server_->options.slow_client_s)) {
+          spdlog::info("closing a client that stayed behind for more than {} s ({} frames dropped)",
+                       server_->options.slow_client_s, dropped_total_);
+          close(websocket::close_code::policy_error, "too slow: behind for too long");
+          return;
+        }
+      }
+    }
+    queue_.emplace_back(type, next_seq_++, std::move(owner), std::string_view(data, size), true);
+    ++queued_frames_;
+    maybe_write();
+  }
+
+  void maybe_write() {
+    if (writing_ || closing_ || queue_.empty()) return;
+    write_front();
+  }
+
+  void write_front() {
+    writing_ = true;
+    const Outgoing& o = queue_.front();
+    const std::array<net::const_buffer, 2> buffers{net::buffer(o.head.view()), net::buffer(o.body)};
+    ws_.async_write(buffers, beast::bind_front_handler(&WsSession::on_write, shared_from_this()));
+  }
+
+  void on_write(beast::error_code ec, std::size_t) {
+    writing_ = false;
+    if (ec) {
+      finish();
+      return;
+    }
+    if (queue_.front().droppable) --queued_frames_;
+    queue_.pop_front();
+    if (closing_) {
+      if (queue_.empty()) {
+        start_close();
+      } else {
+        write_front();
+      }
+      return;
+    }
+    if (queue_.empty()) behind_since_.reset();
+    if (dropped_unreported_ > 0) {
+      const auto now = Clock::now();
+      if (queued_frames_ * 2 < server_->options.queue_frames || now - last_drop_report_ >= std::chrono::seconds(1)) {
+        last_drop_report_ = now;
+        const std::int64_t count = dropped_unreported_;
+        dropped_unreported_ = 0;
+        send_own(protocol::encode(protocol::dropped_frames_event(server_->now_audio(), count)));
+      }
+    }
+    maybe_write();
+  }
+
+  void start_close() {
+    if (close_started_) return;
+    close_started_ = true;
+    ws_.async_close(close_reason_, [self = shared_from_this()](beast::error_code) {
+      self->close_timer_.cancel();
+      self->finish();
+    });
+  }
+
+  void finish() {
+    if (finished_) return;
+    finished_ = true;
+    server_->remove_session(this);
+  }
+
+  websocket::stream<beast::tcp_stream> ws_;
+  std::shared_ptr<Server::Impl> server_;
+  protocol::Role role_;
+  beast::flat_buffer read_buffer_;
+  std::deque<Outgoing> queue_;
+  std::size_t queued_frames_ = 0;
+  std::uint64_t next_seq_ = 1;
+  bool writing_ = false;
+  bool closing_ = false;
+  bool close_started_ = false;
+  bool finished_ = false;
+  websocket::close_reason close_reason_;
+  net::steady_timer close_timer_;
+
+  bool subscribed_ = false;
+  bool settled_ = false;
+  protocol::FieldSet fields_ = protocol::FieldSet::all();
+  int decimation_ = 1;
+
+  std::int64_t dropped_unreported_ = 0;
+  std::int64_t dropped_total_ = 0;
+  std::optional<Clock::time_point> behind_since_;
+  Clock::time_point last_drop_report_{};
+
+  double tokens_ = 0.0;
+  Clock::time_point last_refill_;
+  int refused_in_a_row_ = 0;
+
+ public:
+  // Strand of this connection (its stream's executor).
+  auto executor() { return ws_.get_executor(); }
+};
+
+// ---- HTTP connection (static files, and the upgrade to WebSocket) ------------------------------------
+
+class HttpSession : public std::enable_shared_from_this<HttpSession> {
+ public:
+  HttpSession(tcp::socket&& socket, std::shared_ptr<Server::Impl> server)
+      : stream_(std::move(socket)), server_(std::move(server)) {}
+
+  void run() {
+    net::dispatch(stream_.get_executor(), beast::bind_front_handler(&HttpSession::do_read, shared_from_this()));
+  }
+
+ private:
+  void do_read() {
+    parser_.emplace();
+    parser_->header_limit(kMaxHttpHeaderBytes);
+    parser_->body_limit(server_->options.max_message_bytes);
+    stream_.expires_after(kHttpTimeout);
+    http::async_read(stream_, buffer_, *parser_, beast::bind_front_handler(&HttpSession::on_read, shared_from_this()));
+  }
+
+  void on_read(beast::error_code ec, std::size_t) {
+    if (ec == http::error::end_of_stream) {
+      stream_.socket().shutdown(tcp::socket::shutdown_send, ec);
+      return;
+    }
+    if (ec) {
+      if (ec != beast::error::timeout && ec != net::error::operation_aborted && ec != net::error::connection_reset) {
+        send_error(http::status::bad_request, "bad request: " + ec.message(), 11);
+      }
+      return;
+    }
+    http::request<http::string_body> req = parser_->release();
+    const std::string host(req[http::field::host]);
+    if (!server_->host_allowed(host)) {
+      // DNS rebinding: a page from another site reaching us under its own name.
+      spdlog::warn("refused a request with Host \"{}\"", host.substr(0, 80));
+      send_error(http::status::forbidden, "Host \"" + host.substr(0, 80) + "\" is not this server", req.version());
+      return;
+    }
+    if (websocket::is_upgrade(req)) {
+      upgrade(std::move(req));
+      return;
+    }
+    serve_file(req);
+  }
+
+  void upgrade(http::request<http::string_body>&& req) {
+    const std::string target(req.target());
+    if (path_of(target) != protocol::kWebSocketPath) {
+      send_error(http::status::not_found, "the WebSocket endpoint is " + std::string(protocol::kWebSocketPath),
+                 req.version());
+      return;
+    }
+    if (req.count(http::field::origin) > 0) {
+      const std::string origin(req[http::field::origin]);
+      if (!server_->origin_allowed(origin)) {
+        // Cross-site WebSocket hijacking: only our own page may connect from a browser.
+        spdlog::warn("refused a WebSocket from Origin \"{}\"", origin.substr(0, 80));
+        send_error(http::status::forbidden, "Origin \"" + origin.substr(0, 80) + "\" may not connect",
+                   req.version());
+        return;
+      }
+    }
+    bool offers_v1 = false;
+    std::string token = query_value(target, "token");
+    const std::string offered(req[http::field::sec_websocket_protocol]);
+    std::string_view rest = offered;
+    while (!rest.empty()) {
+      const auto comma = rest.find(',');
+      const std::string_view item = trim(rest.substr(0, comma));
+      if (item == protocol::kSubprotocol) offers_v1 = true;
+      if (item.substr(0, kTokenProtocolPrefix.size()) == kTokenProtocolPrefix) {
+        token = std::string(item.substr(kTokenProtocolPrefix.size()));
+      }
+      if (comma == std::string_view::npos) break;
+      rest.remove_prefix(comma + 1);
+    }
+    if (!offers_v1) {
+      send_error(http::status::bad_request,
+                 "offer the subprotocol " + std::string(protocol::kSubprotocol) + " in Sec-WebSocket-Protocol",
+                 req.version());
+      return;
+    }
+    protocol::Role role = protocol::Role::kObserver;
+    if (!token.empty()) {
+      // Compare with both tokens always, so timing does not tell which one was near.
+      const bool supervisor = tokens_equal(token, server_->options.supervisor_token);
+      const bool lab = tokens_equal(token, server_->options.lab_token);
+      if (supervisor) {
+        role = protocol::Role::kSupervisor;
+      } else if (lab) {
+        role = protocol::Role::kLab;
+      } else {
+        spdlog::warn("refused a WebSocket with an unknown token");
+        send_error(http::status::forbidden, "unknown token", req.version());
+        return;
+      }
+    }
+    if (server_->session_count.load() >= static_cast<std::size_t>(server_->options.max_clients)) {
+      send_error(http::status::service_unavailable,
+                 "too many connections (at most " + std::to_string(server_->options.max_clients) + ")", req.version());
+      return;
+    }
+    stream_.expires_never();  // the WebSocket has timeouts of its own
+    auto session = std::make_shared<WsSession>(stream_.release_socket(), server_, role);
+    session->run(std::move(req));
+  }
+
+  void serve_file(const http::request<http::string_body>& req) {
+    if (req.method() != http::verb::get && req.method() != http::verb::head) {
+      send_error(http::status::method_not_allowed, "only GET and HEAD", req.version());
+      return;
+    }
+    const auto decoded = decode_path(path_of(std::string_view(req.target().data(), req.target().size())));
+    if (!decoded || decoded->empty() || decoded->front() != '/') {
+      send_error(http::status::bad_request, "bad path", req.version());
+      return;
+    }
+    std::string rel = decoded->substr(1);
+    if (rel.empty() || rel.back() == '/') rel += "index.html";
+    const std::filesystem::path relative(rel);
+    for (const auto& part : relative) {
+      if (part == ".." || part == ".") {
+        send_error(http::status::bad_request, "bad path", req.version());
+        return;
+      }
+    }
+    std::error_code fs_ec;
+    const std::filesystem::path root = std::filesystem::canonical(server_->options.web_root, fs_ec);
+    const std::filesystem::path full = std::filesystem::weakly_canonical(root / relative, fs_ec);
+    // The canonical path (symlinks resolved) must still lie inside the root.
+    const auto [root_end, full_it] = std::mismatch(root.begin(), root.end(), full.begin(), full.end());
+    if (fs_ec || root_end != root.end() || !std::filesystem::is_regular_file(full, fs_ec)) {
+      send_error(http::status::not_found, "not found", req.version());
+      return;
+    }
+    beast::error_code ec;
+    http::file_body::value_type body;
+    body.open(full.c_str(), beast::file_mode::scan, ec);
+    if (ec) {
+      send_error(http::status::not_found, "not found", req.version());
+      return;
+    }
+    const auto size = body.size();
+    auto res = std::make_shared<http::response<http::file_body>>(std::piecewise_construct,
+                                                                 std::make_tuple(std::move(body)),
+                                                                 std::make_tuple(http::status::ok, req.version()));
+    set_common_headers(*res);
+    res->set(http::field::content_type, mime_type(full));
+    res->content_length(size);
+    res->keep_alive(req.keep_alive());
+    if (req.method() == http::verb::head) {
+      http::response<http::empty_body> head{http::status::ok, req.version()};
+      set_common_headers(head);
+      head.set(http::field::content_type, mime_type(full));
+      head.content_length(size);
+      head.keep_alive(req.keep_alive());
+      write(std::make_shared<http::response<http::empty_body>>(std::move(head)));
+      return;
+    }
+    write(res);
+  }
+
+  template <class Response>
+  static void set_common_headers(Response& res) {
+    res.set(http::field::server, "pitchwired/" PITCHWIRE_VERSION);
+    res.set(http::field::cache_control, "no-store");
+    res.set("X-Content-Type-Options", "nosniff");
+    res.set("Referrer-Policy", "no-referrer");
+    // Nothing on the page comes from elsewhere, and the page talks only to this server.
+    res.set("Content-Security-Policy", "default-src 'self'; connect-src 'self'; frame-ancestors 'none'");
+  }
+
+  void send_error(http::status status, const std::string& text, unsigned version) {
+    auto res = std::make_shared<http::response<http::string_body>>(status, version);
+    set_common_headers(*res);
+    res->set(http::field::content_type, "text/plain; charset=utf-8");
+    res->body() = text + "\n";
+    res->prepare_payload();
+    res->keep_alive(false);
+    write(res);
+  }
+
+  template <class Response>
+  void write(std::shared_ptr<Response> res) {
+    const bool keep_alive = res->keep_alive();
+    http::async_write(stream_, *res,
+                      [self = shared_from_this(), res, keep_alive](beast::error_code ec, std::size_t) {
+                        if (ec || !keep_alive) {
+                          self->stream_.socket().shutdown(tcp::socket::shutdown_send, ec);
+                          return;
+                        }
+                        self->do_read();
+                      });
+  }
+
+  beast::tcp_stream stream_;
+  beast::flat_buffer buffer_;
+  std::optional<http::request_parser<http::string_body>> parser_;
+  std::shared_ptr<Server::Impl> server_;
+};
+
+// ---- Impl: accept, registry, fan-out -------------------------------------------------------------------
+
+void Server::Impl::do_accept() {
+  acceptor.async_accept(net::make_strand(ioc), [self = shared_from_this()](beast::error_code ec, tcp::socket socket) {
+    if (self->stopping.load()) return;
+    if (!ec) {
+      beast::error_code ignored;
+      socket.set_option(tcp::no_delay(true), ignored);  // frames are small and late ones are useless
+      std::make_shared<HttpSession>(std::move(socket), self)->run();
+    } else if (ec != net::error::operation_aborted) {
+      spdlog::warn("accept failed: {}", ec.message());
+    }
+    self->do_accept();
+  });
+}
+
+std::vector<std::shared_ptr<WsSession>> Server::Impl::snapshot() {
+  std::vector<std::shared_ptr<WsSession>> out;
+  std::lock_guard lock(sessions_mutex);
+  out.reserve(sessions.size());
+  for (const auto& w : sessions) {
+    if (auto s = w.lock()) out.push_back(std::move(s));
+  }
+  return out;
+}
+
+void Server::Impl::add_session(const std::shared_ptr<WsSession>& s) {
+  std::lock_guard lock(sessions_mutex);
+  sessions.push_back(s);
+  session_count.store(sessions.size());
+  spdlog::info("client connected as {} ({} connected)", protocol::name(s->role()), sessions.size());
+}
+
+void Server::Impl::remove_session(const WsSession* s) {
+  std::lock_guard lock(sessions_mutex);
+  std::erase_if(sessions, [s](const std::weak_ptr<WsSession>& w) {
+    const auto locked = w.lock();
+    return !locked || locked.get() == s;
+  });
+  session_count.store(sessions.size());
+  spdlog::info("client disconnected ({} connected)", sessions.size());
+}
+
+void Server::Impl::fan_out_frame(const std::shared_ptr<const FrameBatch>& batch) {
+  for (auto& s : snapshot()) {
+    net::post(s->executor(), [s, batch] { s->deliver_frame(batch); });
+  }
+}
+
+void Server::Impl::fan_out_settled(const std::shared_ptr<const SettledBatch>& batch) {
+  for (auto& s : snapshot()) {
+    net::post(s->executor(), [s, batch] { s->deliver_settled(batch); });
+  }
+}
+
+void Server::Impl::broadcast(const protocol::Encoded& message) {
+  auto shared = std::make_shared<const SharedMessage>(SharedMessage{message});
+  for (auto& s : snapshot()) {
+    net::post(s->executor(), [s, shared] { s->deliver(shared); });
+  }
+}
+
+// ---- Server --------------------------------------------------------------------------------------------
+
+Server::Server(ServerOptions options) : impl_(std::make_shared<Impl>(std::move(options))) {}
+
+Server::~Server() { stop(); }
+
+void Server::start() {
+  auto& o = impl_->options;
+  beast::error_code ec;
+  const auto address = net::ip::make_address(o.bind, ec);
+  if (ec) throw std::runtime_error("cannot listen on \"" + o.bind + "\": not an IP address");
+  const tcp::endpoint endpoint(address, static_cast<unsigned short>(o.port));
+  const std::string where = (address.is_v6() ? "[" + o.bind + "]" : o.bind) + ":" + std::to_string(o.port);
+  auto fail = [&](const char* what) {
+    throw std::runtime_error("cannot listen on " + where + ": " + what + ": " + ec.message());
+  };
+  impl_->acceptor.open(endpoint.protocol(), ec);
+  if (ec) fail("open");
+  impl_->acceptor.set_option(net::socket_base::reuse_address(true), ec);
+  impl_->acceptor.bind(endpoint, ec);
+  if (ec) fail("bind");
+  impl_->acceptor.listen(net::socket_base::max_listen_connections, ec);
+  if (ec) fail("listen");
+  impl_->bound_port = impl_->acceptor.local_endpoint().port();
+
+  const std::string port = std::to_string(impl_->bound_port);
+  std::vector<std::string> names = {"127.0.0.1", "localhost", "[::1]"};
+  if (!address.is_loopback()) names.push_back(address.is_v6() ? "[" + o.bind + "]" : o.bind);
+  for (const auto& n : names) {
+    impl_->allowed_hosts.push_back(lower(n + ":" + port));
+    impl_->allowed_origins.push_back(lower("http://" + n + ":" + port));
+  }
+
+  impl_->work.emplace(impl_->ioc.get_executor());
+  impl_->do_accept();
+  for (int i = 0; i < std::max(1, o.io_threads); ++i) {
+    impl_->threads.emplace_back([impl = impl_] { impl->ioc.run(); });
+  }
+}
+
+void Server::stop() noexcept {
+  if (!impl_ || impl_->stopping.exchange(true)) return;
+  try {
+    net::post(impl_->acceptor.get_executor(), [impl = impl_] {
+      beast::error_code ignored;
+      impl->acceptor.close(ignored);
+    });
+    for (auto& s : impl_->snapshot()) {
+      net::post(s->executor(), [s] { s->close(websocket::close_code::going_away, "pitchwired is stopping", true); });
+    }
+    // Give the closing handshakes a moment (each connection also shuts its socket after kCloseGrace).
+    const auto deadline = Clock::now() + kCloseGrace + std::chrono::milliseconds(200);
+    while (impl_->session_count.load() > 0 && Clock::now() < deadline) {
+      std::this_thread::sleep_for(std::chrono::milliseconds(10));
+    }
+    impl_->work.reset();
+    impl_->ioc.stop();
+    for (auto& t : impl_->threads) {
+      if (t.joinable()) t.join();
+    }
+  } catch (const std::exception& e) {
+    spdlog::error("while stopping the server: {}", e.what());
+  }
+}
+
+void Server::set_audio_format(const protocol::AudioFormat& format) { impl_->options.hello.audio = format; }
+
+int Server::port() const { return impl_->bound_port; }
+std::size_t Server::connections() const { return impl_->session_count.load(); }
+bool Server::input_ended() const { return impl_->input_ended.load(); }
+
+void Server::on_live(const dsp::LiveFrame& frame) {
+  auto batch = std::make_shared<FrameBatch>();
+  batch->frame = frame;
+  for (unsigned bits = 0; bits < batch->bodies.size(); ++bits) {
+    if (impl_->field_set_users[bits].load(std::memory_order_relaxed) > 0) {
+      batch->bodies[bits] =
+          std::make_shared<const std::string>(protocol::encode_frame(frame, field_set_from_bits(bits)).body);
+    }
+  }
+  net::post(impl_->ioc, [impl = impl_, batch = std::shared_ptr<const FrameBatch>(std::move(batch))] {
+    impl->fan_out_frame(batch);
+  });
+}
+
+void Server::on_settled(const dsp::SettledFrame& frame) {
+  impl_->settled_frames.fetch_add(1, std::memory_order_relaxed);
+  if (frame.f0_hz) impl_->voiced_frames.fetch_add(1, std::memory_order_relaxed);
+  auto batch = std::make_shared<SettledBatch>();
+  batch->index = frame.index;
+  batch->body = protocol::encode_settled(frame).body;
+  net::post(impl_->ioc, [impl = impl_, batch = std::shared_ptr<const SettledBatch>(std::move(batch))] {
+    impl->fan_out_settled(batch);
+  });
+}
+
+void Server::on_stats(const protocol::Stats& stats) {
+  net::post(impl_->ioc, [impl = impl_, message = protocol::encode(stats)] { impl->broadcast(message); });
+}
+
+void Server::on_event(const protocol::Event& event) {
+  spdlog::warn("{} at {:.3f} s: {}", protocol::name(event.kind), event.time_s, event.payload.dump());
+  net::post(impl_->ioc, [impl = impl_, message = protocol::encode(event)] { impl->broadcast(message); });
+}
+
+void Server::on_end() {
+  net::post(impl_->ioc, [impl = impl_] { impl->input_ended.store(true); });
+}
+
+void Server::on_device_lost(const std::string& device, const std::string& reason) {
+  spdlog::error("audio input {} lost: {}", device, reason);
+  net::post(impl_->ioc, [impl = impl_, message = protocol::encode(protocol::device_lost_event(
+                                                  impl_->now_audio(), device, reason))] { impl->broadcast(message); });
+}
+
+void Server::on_device_back(const std::string& device) {
+  spdlog::info("audio input {} is back", device);
+  net::post(impl_->ioc, [impl = impl_, message = protocol::encode(protocol::device_back_event(
+                                                  impl_->now_audio(), device))] { impl->broadcast(message); });
+}
+
+}  // namespace pitchwire::daemon

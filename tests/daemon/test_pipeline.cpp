@@ -1,0 +1,211 @@
+// test_pipeline.cpp: the sample ring, the paced file source and the analysis thread, without the network.
+#include <gtest/gtest.h>
+#include <sndfile.h>
+
+#include <chrono>
+#include <condition_variable>
+#include <mutex>
+#include <thread>
+#include <vector>
+
+#include "pitchwire/daemon/audio_source.h"
+#include "pitchwire/daemon/pipeline.h"
+#include "pitchwire/dsp/voice_synth.h"
+#include "test_audio.h"
+
+namespace pitchwire::daemon {
+namespace {
+
+using namespace std::chrono_literals;
+
+TEST(SampleRing, KeepsOrderAndCountsWhatDoesNotFit) {
+  SampleRing ring(100);
+  std::vector<float> in(150);
+  for (std::size_t i = 0; i < in.size(); ++i) in[i] = static_cast<float>(i);
+  ring.write(in.data(), in.size());
+  EXPECT_EQ(ring.written(), 100);
+  EXPECT_EQ(ring.lost(), 50);
+  std::vector<float> out(200);
+  ASSERT_EQ(ring.read(out.data(), out.size()), 100u);
+  for (std::size_t i = 0; i < 100; ++i) ASSERT_EQ(out[i], static_cast<float>(i)) << i;
+  EXPECT_EQ(ring.read(out.data(), out.size()), 0u);
+}
+
+// Collects what the analysis thread hands over, and says when the input has ended.
+class Collector final : public PipelineListener {
+ public:
+  void on_live(const dsp::LiveFrame& f) override {
+    std::lock_guard lock(mutex_);
+    live.push_back(f);
+  }
+  void on_settled(const dsp::SettledFrame& f) override {
+    std::lock_guard lock(mutex_);
+    settled.push_back(f);
+  }
+  void on_stats(const protocol::Stats& s) override {
+    std::lock_guard lock(mutex_);
+    stats.push_back(s);
+  }
+  void on_event(const protocol::Event& e) override {
+    std::lock_guard lock(mutex_);
+    events.push_back(e);
+  }
+  void on_end() override {
+    std::lock_guard lock(mutex_);
+    ended = true;
+    cv_.notify_all();
+  }
+  bool wait_end(std::chrono::milliseconds timeout) {
+    std::unique_lock lock(mutex_);
+    return cv_.wait_for(lock, timeout, [this] { return ended; });
+  }
+  std::vector<dsp::LiveFrame> live;
+  std::vector<dsp::SettledFrame> settled;
+  std::vector<protocol::Stats> stats;
+  std::vector<protocol::Event> events;
+  bool ended = false;
+
+ private:
+  std::mutex mutex_;
+  std::condition_variable cv_;
+};
+
+class OfflineSink final : public dsp::FrameSink {
+ public:
+  void on_live(const dsp::LiveFrame& f) override { live.push_back(f); }
+  void on_settled(const dsp::SettledFrame& f) override { settled.push_back(f); }
+  std::vector<dsp::LiveFrame> live;
+  std::vector<dsp::SettledFrame> settled;
+};
+
+class NoEvents final : public SourceListener {
+ public:
+  void on_device_lost(const std::string& d, const std::string& r) override { ADD_FAILURE() << d << ": " << r; }
+  void on_device_back(const std::string&) override {}
+};
+
+// A file replayed in real time through the ring gives exactly the frames of the offline tracker over the
+// same samples (`pitchwire analyze` runs that): one code path, whatever the blocks and the timing.
+TEST(Pipeline, FileReplayGivesTheFramesOfTheOfflineTracker) {
+  testing::TempDir dir;
+  const double rate = 16000.0;
+  dsp::Rendered voice = dsp::render_demo_session(rate);
+  voice.samples.resize(static_cast<std::size_t>(1.5 * rate));  // 1.5 s: speech with pauses
+  const auto path = dir / "voice.wav";
+  testing::write_sound(path, SF_FORMAT_WAV | SF_FORMAT_FLOAT, static_cast<int>(rate), 1, voice.samples);
+
+  SourceOptions source_options;
+  source_options.loop = false;
+  source_options.buffer_frames = 160;
+  auto source = make_file_source(path.string(), source_options);
+  SampleRing ring(static_cast<std::size_t>(rate));
+  NoEvents no_events;
+  Collector collector;
+  PipelineOptions options;
+  options.stats_interval_s = 0.5;
+  options.stats_window_s = 1.0;
+  const auto t0 = std::chrono::steady_clock::now();
+  source->start(ring, no_events);
+  EXPECT_EQ(source->sample_rate_hz(), rate);
+  Pipeline pipeline(ring, *source, options, collector);
+  pipeline.start();
+  ASSERT_TRUE(collector.wait_end(20s));
+  const double elapsed = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  pipeline.stop();
+  source->stop();
+  // Paced at real time: not faster than the audio lasts (a little slack for the clock's start).
+  EXPECT_GE(elapsed, 1.5 * 0.9);
+
+  dsp::TrackerConfig config = options.tracker;
+  config.sample_rate_hz = rate;
+  dsp::PitchTracker tracker(config);
+  OfflineSink offline;
+  tracker.process(voice.samples, offline);
+  tracker.flush(offline);
+
+  ASSERT_EQ(collector.live.size(), offline.live.size());
+  ASSERT_EQ(collector.settled.size(), offline.settled.size());
+  for (std::size_t i = 0; i < offline.settled.size(); ++i) {
+    SCOPED_TRACE(i);
+    EXPECT_EQ(collector.live[i].index, offline.live[i].index);
+    EXPECT_EQ(collector.live[i].time_s, offline.live[i].time_s);
+    EXPECT_EQ(collector.live[i].f0_hz, offline.live[i].f0_hz);
+    EXPECT_EQ(collector.settled[i].f0_hz, offline.settled[i].f0_hz);
+  }
+  // A stats message every 0.5 s of settled frames (100 hops of 5 ms).
+  EXPECT_EQ(collector.stats.size(), offline.settled.size() / 100);
+  EXPECT_TRUE(collector.events.empty());
+  EXPECT_NEAR(pipeline.audio_time_s(), 1.5, 1e-9);
+}
+
+// A source under the test's control: writes nothing itself, finishes when told.
+class ManualSource final : public AudioSource {
+ public:
+  std::string describe() const override { return "manual"; }
+  void start(SampleRing&, SourceListener&) override {}
+  void stop() noexcept override {}
+  double sample_rate_hz() const override { return 8000.0; }
+  int channel() const override { return 1; }
+  bool finished() const override { return finished_.load(); }
+  std::atomic<bool> finished_{false};
+};
+
+// Samples the ring could not hold are reported in an overflow event and analysed as silence, so the
+// audio clock stays the capture clock.
+TEST(Pipeline, OverflowIsReportedAndTheClockKeepsTheLostSamples) {
+  ManualSource source;
+  SampleRing ring(1000);
+  std::vector<float> burst(5000, 0.0f);
+  ring.write(burst.data(), burst.size());  // 4000 lost before analysis starts
+  ASSERT_EQ(ring.lost(), 4000);
+  Collector collector;
+  Pipeline pipeline(ring, source, PipelineOptions{}, collector);
+  pipeline.start();
+  const auto deadline = std::chrono::steady_clock::now() + 10s;
+  while (pipeline.audio_time_s() < 5000.0 / 8000.0 && std::chrono::steady_clock::now() < deadline) {
+    std::this_thread::sleep_for(1ms);
+  }
+  source.finished_.store(true);
+  ASSERT_TRUE(collector.wait_end(10s));
+  pipeline.stop();
+  ASSERT_EQ(collector.events.size(), 1u);
+  EXPECT_EQ(collector.events[0].kind, protocol::EventKind::kOverflow);
+  EXPECT_EQ(collector.events[0].payload.at("samples_lost"), 4000);
+  EXPECT_NEAR(pipeline.audio_time_s(), 5000.0 / 8000.0, 1e-12);
+  // Silence is unvoiced.
+  for (const auto& f : collector.settled) EXPECT_FALSE(f.f0_hz.has_value());
+}
+
+TEST(Sources, AFileThatIsNotThereIsAOneLineErrorNamingIt) {
+  NoEvents no_events;
+  SampleRing ring(100);
+  auto source = make_file_source("/nonexistent/voice.wav", SourceOptions{});
+  try {
+    source->start(ring, no_events);
+    FAIL() << "no error";
+  } catch (const SourceError& e) {
+    const std::string what = e.what();
+    EXPECT_NE(what.find("/nonexistent/voice.wav"), std::string::npos) << what;
+    EXPECT_NE(what.find("no such file"), std::string::npos) << what;
+    EXPECT_EQ(what.find('\n'), std::string::npos) << what;
+  }
+}
+
+TEST(Sources, TheDemoLoopsAtItsOwnRate) {
+  NoEvents no_events;
+  SampleRing ring(64000);
+  SourceOptions options;
+  options.buffer_frames = 320;
+  auto source = make_demo_source(options);
+  source->start(ring, no_events);
+  EXPECT_EQ(source->sample_rate_hz(), 16000.0);
+  std::this_thread::sleep_for(300ms);
+  source->stop();
+  // About 0.3 s of samples at 16 kHz (pacing, with slack for a loaded machine).
+  EXPECT_GT(ring.written(), 2000);
+  EXPECT_LT(ring.written(), 16000);
+  EXPECT_FALSE(source->finished());
+}
+
+}  // namespace
+}  // namespace pitchwire::daemon
