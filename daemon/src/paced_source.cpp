@@ -8,6 +8,8 @@
 // the file (a slow disk then looks like a device that delivers late, and the ring absorbs it). Problems
 // found in mid-file (truncation, a NaN sample) are reported through SourceListener::on_device_lost from
 // that thread, and the source then counts as finished.
+#include <pthread.h>
+
 #include <algorithm>
 #include <chrono>
 #include <span>
@@ -59,6 +61,7 @@ class PacedSource : public AudioSource {
 
  private:
   void run() {
+    pthread_setname_np(pthread_self(), "pw-audio");
     // Each block is due n / rate after the previous one: blocks may be shorter at the end of a file.
     auto deadline = Clock::now();
     while (!stop_requested_.load()) {

@@ -1,6 +1,8 @@
 // pipeline.cpp: the analysis thread (see pipeline.h).
 #include "pitchwire/daemon/pipeline.h"
 
+#include <pthread.h>
+
 #include <algorithm>
 #include <chrono>
 #include <cmath>
@@ -96,10 +98,12 @@ double Pipeline::audio_time_s() const {
 }
 
 void Pipeline::run() {
+  pthread_setname_np(pthread_self(), "pw-analysis");
   Forwarder forwarder(listener_, options_, frames_);
   std::vector<float> chunk(kReadChunk);
-  std::int64_t lost_seen = ring_.lost();
-  std::int64_t xruns_seen = source_.xruns();
+  // From zero: samples lost before this thread started (the source starts first) count too.
+  std::int64_t lost_seen = 0;
+  std::int64_t xruns_seen = 0;
   while (!stop_requested_.load(std::memory_order_relaxed)) {
     const std::size_t n = ring_.read(chunk.data(), chunk.size());
     if (n > 0) {

@@ -4,9 +4,14 @@
 // Thread contract:
 //   analysis thread   Server::on_live/on_settled/on_stats/on_event/on_end: encode once, post one job.
 //   monitor thread    Server::on_device_lost/on_device_back: build the event, post one job.
-//   network thread(s) everything else. Each WebSocket connection runs on its own strand; the shared
-//                     state (connection registry, bands, exercise) is guarded by small mutexes that are
-//                     never held across I/O.
+//   network thread    everything else. One thread runs the io_context, so it is the implicit strand of
+//                     every connection (handlers of an io_context run by one thread never run
+//                     concurrently): the fan-out hands a frame to each connection by a direct call rather
+//                     than by posting a handler per connection, which is what lets one thread serve
+//                     hundreds of subscribers at 200 frames per second. Nothing on that thread blocks:
+//                     every socket operation is asynchronous and every connection's queue is bounded.
+//                     The shared state (bands, exercise) is guarded by a small mutex, never held
+//                     across I/O, because other threads read it for exercise summaries.
 #include "pitchwire/daemon/server.h"
 
 #include <algorithm>
@@ -18,7 +23,10 @@
 #include <optional>
 #include <thread>
 #include <unordered_set>
+#include <utility>  // before Boost.Asio 1.74, whose awaitable.hpp uses std::exchange without it
 #include <vector>
+
+#include <pthread.h>
 
 #include <boost/asio.hpp>
 #include <boost/beast/core.hpp>
@@ -50,6 +58,9 @@ constexpr auto kCloseGrace = std::chrono::milliseconds(500);
 // A client that keeps sending after this many refused requests in a row is closed (1008).
 constexpr int kMaxRefusedInARow = 100;
 constexpr std::size_t kMaxBands = 16;
+constexpr std::size_t kOversizeFactor = 4;
+// Kernel send buffer per WebSocket (Linux doubles it): about 1 s of frames at full rate with every field.
+constexpr int kSocketSendBufferBytes = 32 * 1024;
 constexpr std::size_t kMaxHttpHeaderBytes = 8 * 1024;
 // A second Sec-WebSocket-Protocol entry may carry the token: "pitchwire.token.<hex>".
 constexpr std::string_view kTokenProtocolPrefix = "pitchwire.token.";
@@ -169,7 +180,7 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
   ServerOptions options;
   net::io_context ioc;
   tcp::acceptor acceptor;
-  std::vector<std::thread> threads;
+  std::thread thread;  // the network thread
   std::optional<net::executor_work_guard<net::io_context::executor_type>> work;
   int bound_port = 0;
   std::atomic<bool> stopping{false};
@@ -177,9 +188,9 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
   std::vector<std::string> allowed_hosts;    // "127.0.0.1:7350", "localhost:7350", "[::1]:7350"
   std::vector<std::string> allowed_origins;  // "http://" + each allowed host
 
-  // Connections, for fan-out (any thread may read under the mutex; sessions add and remove themselves).
-  mutable std::mutex sessions_mutex;
-  std::vector<std::weak_ptr<WsSession>> sessions;
+  // Connections, for fan-out. Network thread only (session_count is read from any thread).
+  std::vector<std::shared_ptr<WsSession>> sessions;
+  std::vector<std::shared_ptr<WsSession>> fan_out_scratch;  // reused: no allocation per frame
   std::atomic<std::size_t> session_count{0};
   // Field sets in use by subscriptions: count per FieldSet::bits(); the analysis thread encodes those.
   std::array<std::atomic<int>, 16> field_set_users{};
@@ -199,7 +210,7 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
   void fan_out_settled(const std::shared_ptr<const SettledBatch>& batch);
   void broadcast(const protocol::Encoded& message);
   void broadcast_event(const protocol::Event& event) { broadcast(protocol::encode(event)); }
-  std::vector<std::shared_ptr<WsSession>> snapshot();
+  const std::vector<std::shared_ptr<WsSession>>& snapshot();
   void add_session(const std::shared_ptr<WsSession>& s);
   void remove_session(const WsSession* s);
   void do_accept();
@@ -241,7 +252,10 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       res.set(http::field::server, "pitchwired/" PITCHWIRE_VERSION);
       res.set(http::field::sec_websocket_protocol, std::string(protocol::kSubprotocol));
     }));
-    ws_.read_message_max(server_->options.max_message_bytes);
+    // Messages up to max_message_bytes are decoded; longer ones up to kOversizeFactor times that are
+    // read and answered with a too_large error (docs/protocol.md); beyond that the WebSocket is failed
+    // with close code 1009, so that nobody can make the daemon buffer megabytes.
+    ws_.read_message_max(server_->options.max_message_bytes * kOversizeFactor);
     ws_.auto_fragment(false);
     // Every message is text; binary frames from the client are refused in on_read.
     ws_.text(true);
@@ -283,7 +297,10 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     close_reason_ = websocket::close_reason(code, reason);
     close_timer_.expires_after(kCloseGrace);
     close_timer_.async_wait([self = shared_from_this()](beast::error_code ec) {
-      if (!ec) beast::get_lowest_layer(self->ws_).close();  // the peer did not finish in time
+      if (!ec) {
+        beast::error_code ignored;
+        beast::get_lowest_layer(self->ws_).close(ignored);  // the peer did not finish in time
+      }
     });
     if (!drain) {
       // Keep the message being written: its buffers are in use until on_write.
@@ -329,7 +346,8 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     if (ec) {
       if (ec == websocket::error::message_too_big) {
         // Beast has already failed the connection with close code 1009 (message too big).
-        spdlog::info("client closed: message larger than {} bytes", server_->options.max_message_bytes);
+        spdlog::info("client closed: message larger than {} bytes",
+                     server_->options.max_message_bytes * kOversizeFactor);
       } else if (ec != websocket::error::closed && ec != net::error::operation_aborted) {
         spdlog::debug("client read ended: {}", ec.message());
       }
@@ -610,7 +628,9 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     server_->remove_session(this);
   }
 
-  websocket::stream<beast::tcp_stream> ws_;
+  // A plain socket under the WebSocket (not beast::tcp_stream): the WebSocket keeps its own timeouts,
+  // and the per-operation timer bookkeeping of tcp_stream is a measurable cost at this message rate.
+  websocket::stream<tcp::socket> ws_;
   std::shared_ptr<Server::Impl> server_;
   protocol::Role role_;
   beast::flat_buffer read_buffer_;
@@ -638,10 +658,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
   Clock::time_point last_refill_;
   int refused_in_a_row_ = 0;
 
- public:
-  // Strand of this connection (its stream's executor).
-  auto executor() { return ws_.get_executor(); }
-};
+ };
 
 // ---- HTTP connection (static files, and the upgrade to WebSocket) ------------------------------------
 
@@ -747,6 +764,11 @@ class HttpSession : public std::enable_shared_from_this<HttpSession> {
       return;
     }
     stream_.expires_never();  // the WebSocket has timeouts of its own
+    // A fixed, small kernel send buffer (no autotuning up to megabytes): frames for a client that does
+    // not read pile up in our bounded queue, where the newest win, rather than as stale seconds in the
+    // kernel.
+    beast::error_code ignored;
+    stream_.socket().set_option(net::socket_base::send_buffer_size(kSocketSendBufferBytes), ignored);
     auto session = std::make_shared<WsSession>(stream_.release_socket(), server_, role);
     session->run(std::move(req));
   }
@@ -848,7 +870,7 @@ class HttpSession : public std::enable_shared_from_this<HttpSession> {
 // ---- Impl: accept, registry, fan-out -------------------------------------------------------------------
 
 void Server::Impl::do_accept() {
-  acceptor.async_accept(net::make_strand(ioc), [self = shared_from_this()](beast::error_code ec, tcp::socket socket) {
+  acceptor.async_accept(ioc, [self = shared_from_this()](beast::error_code ec, tcp::socket socket) {
     if (self->stopping.load()) return;
     if (!ec) {
       beast::error_code ignored;
@@ -861,50 +883,38 @@ void Server::Impl::do_accept() {
   });
 }
 
-std::vector<std::shared_ptr<WsSession>> Server::Impl::snapshot() {
-  std::vector<std::shared_ptr<WsSession>> out;
-  std::lock_guard lock(sessions_mutex);
-  out.reserve(sessions.size());
-  for (const auto& w : sessions) {
-    if (auto s = w.lock()) out.push_back(std::move(s));
-  }
-  return out;
+// A copy of the registry to iterate over: a delivery may end in a connection removing itself.
+const std::vector<std::shared_ptr<WsSession>>& Server::Impl::snapshot() {
+  fan_out_scratch.assign(sessions.begin(), sessions.end());
+  return fan_out_scratch;
 }
 
 void Server::Impl::add_session(const std::shared_ptr<WsSession>& s) {
-  std::lock_guard lock(sessions_mutex);
   sessions.push_back(s);
   session_count.store(sessions.size());
   spdlog::info("client connected as {} ({} connected)", protocol::name(s->role()), sessions.size());
 }
 
 void Server::Impl::remove_session(const WsSession* s) {
-  std::lock_guard lock(sessions_mutex);
-  std::erase_if(sessions, [s](const std::weak_ptr<WsSession>& w) {
-    const auto locked = w.lock();
-    return !locked || locked.get() == s;
-  });
+  std::erase_if(sessions, [s](const std::shared_ptr<WsSession>& p) { return p.get() == s; });
   session_count.store(sessions.size());
   spdlog::info("client disconnected ({} connected)", sessions.size());
 }
 
 void Server::Impl::fan_out_frame(const std::shared_ptr<const FrameBatch>& batch) {
-  for (auto& s : snapshot()) {
-    net::post(s->executor(), [s, batch] { s->deliver_frame(batch); });
-  }
+  for (const auto& s : snapshot()) s->deliver_frame(batch);
+  fan_out_scratch.clear();
 }
 
 void Server::Impl::fan_out_settled(const std::shared_ptr<const SettledBatch>& batch) {
-  for (auto& s : snapshot()) {
-    net::post(s->executor(), [s, batch] { s->deliver_settled(batch); });
-  }
+  for (const auto& s : snapshot()) s->deliver_settled(batch);
+  fan_out_scratch.clear();
 }
 
 void Server::Impl::broadcast(const protocol::Encoded& message) {
   auto shared = std::make_shared<const SharedMessage>(SharedMessage{message});
-  for (auto& s : snapshot()) {
-    net::post(s->executor(), [s, shared] { s->deliver(shared); });
-  }
+  for (const auto& s : snapshot()) s->deliver(shared);
+  fan_out_scratch.clear();
 }
 
 // ---- Server --------------------------------------------------------------------------------------------
@@ -942,21 +952,23 @@ void Server::start() {
 
   impl_->work.emplace(impl_->ioc.get_executor());
   impl_->do_accept();
-  for (int i = 0; i < std::max(1, o.io_threads); ++i) {
-    impl_->threads.emplace_back([impl = impl_] { impl->ioc.run(); });
-  }
+  impl_->thread = std::thread([impl = impl_] {
+    pthread_setname_np(pthread_self(), "pw-net");
+    impl->ioc.run();
+  });
 }
 
 void Server::stop() noexcept {
   if (!impl_ || impl_->stopping.exchange(true)) return;
   try {
-    net::post(impl_->acceptor.get_executor(), [impl = impl_] {
+    net::post(impl_->ioc, [impl = impl_] {
       beast::error_code ignored;
       impl->acceptor.close(ignored);
+      for (const auto& s : impl->snapshot()) {
+        s->close(websocket::close_code::going_away, "pitchwired is stopping", true);
+      }
+      impl->fan_out_scratch.clear();
     });
-    for (auto& s : impl_->snapshot()) {
-      net::post(s->executor(), [s] { s->close(websocket::close_code::going_away, "pitchwired is stopping", true); });
-    }
     // Give the closing handshakes a moment (each connection also shuts its socket after kCloseGrace).
     const auto deadline = Clock::now() + kCloseGrace + std::chrono::milliseconds(200);
     while (impl_->session_count.load() > 0 && Clock::now() < deadline) {
@@ -964,9 +976,7 @@ void Server::stop() noexcept {
     }
     impl_->work.reset();
     impl_->ioc.stop();
-    for (auto& t : impl_->threads) {
-      if (t.joinable()) t.join();
-    }
+    if (impl_->thread.joinable()) impl_->thread.join();
   } catch (const std::exception& e) {
     spdlog::error("while stopping the server: {}", e.what());
   }

@@ -6,3 +6,5 @@ target_include_directories(pitchwire_daemon_tests PRIVATE ${CMAKE_CURRENT_LIST_D
 target_link_libraries(pitchwire_daemon_tests PRIVATE pitchwire::daemon_core PkgConfig::SNDFILE pitchwire_options GTest::gtest_main)
 target_compile_definitions(pitchwire_daemon_tests PRIVATE PITCHWIRE_SOURCE_DIR="${PROJECT_SOURCE_DIR}")
 gtest_discover_tests(pitchwire_daemon_tests DISCOVERY_TIMEOUT 60 PROPERTIES LABELS daemon)
+# tests/daemon/test_device_source.cpp plays into JACK through the JACK C API (tests/daemon/jack_fixture.h).
+target_link_libraries(pitchwire_daemon_tests PRIVATE jack)

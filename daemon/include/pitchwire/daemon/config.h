@@ -47,7 +47,7 @@ struct DaemonConfig {
   // estimator (dsp::TrackerConfig; the same defaults as `pitchwire analyze`)
   double hop_ms = 5.0;                // "hop_ms": 2.5..10
   double settle_ms = 60.0;            // "settle_ms": 0..500
-  double f0_min_hz = 50.0;            // "f0_min_hz", "f0_max_hz": 30..2000, min < max
+  double f0_min_hz = 50.0;            // "f0_min_hz", "f0_max_hz": as dsp::TrackerConfig allows (docs/configuration.md)
   double f0_max_hz = 1400.0;
   bool hum_cancel = true;             // "hum_cancel"
   double reference_hz = 100.0;        // "reference_hz": 20..2000, semitones are re this frequency
@@ -57,7 +57,7 @@ struct DaemonConfig {
   int port = kDefaultPort;            // "port": 0 (pick a free one) .. 65535
   std::filesystem::path web_root;     // "web_root": folder of the live page; empty = the built-in default
   int max_clients = 512;              // "max_clients": 1..10000 WebSocket connections at once
-  std::size_t max_message_bytes = 4096;  // "max_message_bytes": 256..65536, largest client message
+  std::size_t max_message_bytes = 16384;  // "max_message_bytes": 256..65536, largest client message
   std::size_t queue_frames = 64;      // "queue_frames": 4..4096 frames queued per client before dropping
   double slow_client_s = 10.0;        // "slow_client_s": 1..600, a client behind this long is closed
   double requests_per_s = 20.0;       // "requests_per_s": 1..1000 sustained client requests per connection

@@ -3,13 +3,14 @@
 // One port serves the static files of the live page (web_root) over HTTP and upgrades `/ws` to protocol
 // v1 (subprotocol `pitchwire.v1`). The server is also the pipeline's listener: each frame is encoded once
 // per field set in use, on the analysis thread, and handed to the network thread, which queues it on every
-// subscribed connection. Each connection has its own strand and a bounded write queue: frames are
+// subscribed connection. One network thread serves every connection (it is their implicit strand);
+// each connection has a bounded write queue: frames are
 // droppable (newest wins, drops counted and told to that client), replies and events are not; a client
 // that stays behind for longer than slow_client_s is closed with code 1008 (policy violation).
 //
 // Thread contract: construct, start() and stop() on the control thread. The PipelineListener functions
 // run on the analysis thread and only encode and post. The SourceListener functions run on a source's
-// monitor thread and only post. Everything else runs on the network thread(s) of the server's io_context.
+// monitor thread and only post. Everything else runs on the server's one network thread.
 // Beast lives in server.cpp only (it is slow to compile); this header does not include it.
 #pragma once
 
@@ -31,7 +32,7 @@ struct ServerOptions {
   int port = 0;                       // 0: the system picks a free port (see Server::port())
   std::filesystem::path web_root;     // folder served over HTTP
   int max_clients = 512;
-  std::size_t max_message_bytes = 4096;
+  std::size_t max_message_bytes = protocol::kDefaultMaxMessageBytes;
   std::size_t queue_frames = 64;
   double slow_client_s = 10.0;
   double requests_per_s = 20.0;
@@ -41,7 +42,6 @@ struct ServerOptions {
   std::vector<std::string> presets;   // exercise preset names start_exercise accepts
   protocol::Hello hello;              // the greeting's fixed part (versions, audio format, hop, range)
   std::function<double()> audio_clock;  // seconds on the audio clock now (Pipeline::audio_time_s)
-  int io_threads = 1;
 };
 
 class Server final : public PipelineListener, public SourceListener {
