@@ -339,7 +339,13 @@ struct PitchTracker::Impl {
       soxr_quality_spec_t q = soxr_quality_spec(SOXR_LQ, 0);
       q.passband_end = 0.5;
       q.stopband_begin = 1.0;
-      soxr = soxr_create(fs, fa, 1, &err, &io, &q, nullptr);
+      // Small DFT blocks: soxr filters in blocks of 2^log2_min_dft_size samples and releases its output a
+      // block at a time, so its default (1024) held frames back for tens of milliseconds and released
+      // them in bursts; 256 (the smallest it takes) keeps the live value live. One thread: no OpenMP.
+      soxr_runtime_spec_t rt = soxr_runtime_spec(1);
+      rt.log2_min_dft_size = 8;
+      rt.log2_large_dft_size = 8;
+      soxr = soxr_create(fs, fa, 1, &err, &io, &q, &rt);
       if (err) throw std::runtime_error(std::string("resampler: ") + err);
       rs_out.resize(4096);
     }

@@ -8,3 +8,17 @@ target_compile_definitions(pitchwire_daemon_tests PRIVATE PITCHWIRE_SOURCE_DIR="
 gtest_discover_tests(pitchwire_daemon_tests DISCOVERY_TIMEOUT 60 PROPERTIES LABELS daemon)
 # tests/daemon/test_device_source.cpp plays into JACK through the JACK C API (tests/daemon/jack_fixture.h).
 target_link_libraries(pitchwire_daemon_tests PRIVATE jack)
+
+# pitchwire_jack_player: a JACK client that plays a vowel of known F0 (or F0 steps with their times), for the
+# end-to-end test and the latency benchmark of tests/daemon/jack_live.py.
+add_executable(pitchwire_jack_player ${CMAKE_CURRENT_LIST_DIR}/jack_voice_player.cpp)
+target_link_libraries(pitchwire_jack_player PRIVATE pitchwire::dsp jack pitchwire_options)
+
+# End to end through a JACK server (dummy driver) started by the test: the player's vowel, captured by
+# pitchwired --input device:jack/..., reaches a WebSocket client with the F0 it was played at.
+pitchwire_find_python(PITCHWIRE_PYTHON_WS "websockets, jsonschema" "python3-websockets python3-jsonschema"
+                      "the daemon's live tests")
+add_test(NAME daemon.jack_end_to_end
+         COMMAND ${PITCHWIRE_PYTHON_WS} ${CMAKE_CURRENT_LIST_DIR}/jack_live.py check
+                 $<TARGET_FILE:pitchwired> $<TARGET_FILE:pitchwire_jack_player>)
+set_tests_properties(daemon.jack_end_to_end PROPERTIES LABELS daemon TIMEOUT 120 RUN_SERIAL TRUE)

@@ -90,7 +90,7 @@ class PitchTracker {
   [[nodiscard]] const TrackerConfig& config() const;
   [[nodiscard]] double analysis_rate_hz() const;     // rate the estimator runs at after resampling
   // Input time from a hop's centre to its live frame: half the analysis window. Input above 8 kHz adds
-  // the resampler's hold-back (about 7 ms with 16, 44.1 and 48 kHz input, fed sample by sample).
+  // the resampler's hold-back (about 7 ms on average with 16, 44.1 and 48 kHz input; docs/estimator.md).
   [[nodiscard]] double live_latency_s() const;
   [[nodiscard]] int settle_frames() const;           // settled lag in hops
   [[nodiscard]] std::int64_t nonfinite_samples() const;
