@@ -22,3 +22,10 @@ add_test(NAME daemon.jack_end_to_end
          COMMAND ${PITCHWIRE_PYTHON_WS} ${CMAKE_CURRENT_LIST_DIR}/jack_live.py check
                  $<TARGET_FILE:pitchwired> $<TARGET_FILE:pitchwire_jack_player>)
 set_tests_properties(daemon.jack_end_to_end PROPERTIES LABELS daemon TIMEOUT 120 RUN_SERIAL TRUE)
+
+# The server against a real C++ WebSocket client (Beast) in one process: greeting, rates, settled corrections,
+# every kind of bad input, roles, handshake checks, shutdown. Its own executable: Beast is slow to compile,
+# and this keeps it out of pitchwire_daemon_tests.
+add_executable(pitchwire_server_client_tests ${CMAKE_CURRENT_LIST_DIR}/server_client_test.cpp)
+target_link_libraries(pitchwire_server_client_tests PRIVATE pitchwire::server pitchwire_options GTest::gtest_main)
+gtest_discover_tests(pitchwire_server_client_tests DISCOVERY_TIMEOUT 60 PROPERTIES LABELS daemon)
