@@ -12,6 +12,7 @@
 #include <array>
 #include <cmath>
 #include <complex>
+#include <limits>
 #include <numeric>
 #include <stdexcept>
 #include <vector>
@@ -42,6 +43,10 @@ constexpr double kVoicedDip = 0.55;              // deepest dip value at which v
 constexpr double kVoicedDipWidth = 0.05;         // and how fast the evidence changes around it
 constexpr double kCentreBelowWindowDb = 10.0;    // a frame whose middle is this much quieter than its
                                                  // window sits in a pause next to a voiced stretch
+constexpr double kEarlyMaxLagS = 0.008;          // early live value: lags up to 8 ms (F0 from 125 Hz) over a
+                                                 // window of two such lags, complete 12 ms before the full one
+constexpr float kEarlyUnknownObs = 0.5f;         // early observation of bins below the early range: no evidence
+constexpr double kEarlyMaxDip = 0.08;            // an early value is published only from a dip this deep
 
 // Second-order section, transposed direct form II (RBJ cookbook coefficients, common practice).
 struct Biquad {
@@ -216,6 +221,18 @@ struct Candidate {
   float dip = 1;   // value of the normalised difference function at the dip
 };
 
+// The early live value of a frame: short-lag candidates from the short window centred on the frame.
+struct EarlyRecord {
+  std::int64_t index = -1;
+  std::array<Candidate, kMaxCandidates> cand{};
+  std::array<float, kMaxCandidates> gate{};  // speaker-model gate per candidate
+  std::size_t n_cand = 0;
+  double pv = 0;  // periodicity evidence, level-gated
+  bool emitted = false;
+  std::optional<float> live_f0;
+  float voicing = 0, confidence = 0;
+};
+
 // Everything remembered about a frame until its settled value is out.
 struct FrameRecord {
   std::int64_t index = -1;
@@ -252,7 +269,6 @@ struct PitchTracker::Impl {
   double fa = 0;        // analysis rate
   double hop_a = 0;     // hop in analysis samples (may be fractional)
   int tau_min = 0, tau_max = 0, span = 0, half = 0;
-  int nfft = 0;
 
   // Resampler (only when fs > analysis rate).
   soxr_t soxr = nullptr;
@@ -270,13 +286,39 @@ struct PitchTracker::Impl {
   std::int64_t buf_start = 0;
   std::int64_t analysis_count = 0;  // analysis samples produced so far (excluding the initial padding)
 
-  // FFT scratch.
+  // Difference-function scratch for one window length: the full window (every lag) and the short
+  // window of the early live value (short lags only).
   // FFT (KissFFT, real transforms): set up in microseconds, so a short file costs no planning time.
-  kiss_fftr_cfg fft_fwd = nullptr, fft_inv = nullptr;
-  std::vector<float> fft_in;   // frame in the first span samples, zeros after (set once)
-  std::vector<float> fft_out;  // autocorrelation times nfft
-  std::vector<kiss_fft_cpx> spec;
-  std::vector<double> cum_sq, diff, cmnd;
+  struct YinWork {
+    int span = 0, tau_hi = 0, nfft = 0;
+    kiss_fftr_cfg fwd = nullptr, inv = nullptr;
+    std::vector<float> fft_in;   // frame in the first span samples, zeros after (set once)
+    std::vector<float> fft_out;  // autocorrelation times nfft
+    std::vector<kiss_fft_cpx> spec;
+    std::vector<double> cum_sq, diff, cmnd;
+
+    void init(int window, int max_lag) {
+      span = window;
+      tau_hi = max_lag;
+      nfft = 1;
+      while (nfft < span + tau_hi + 2) nfft <<= 1;  // no circular wrap for lags up to tau_hi + 1
+      fwd = kiss_fftr_alloc(nfft, 0, nullptr, nullptr);
+      inv = kiss_fftr_alloc(nfft, 1, nullptr, nullptr);
+      if (!fwd || !inv) throw std::runtime_error("FFT setup failed");
+      fft_in.assign(static_cast<std::size_t>(nfft), 0.0f);
+      fft_out.assign(static_cast<std::size_t>(nfft), 0.0f);
+      spec.assign(static_cast<std::size_t>(nfft / 2 + 1), kiss_fft_cpx{});
+      cum_sq.resize(static_cast<std::size_t>(span) + 1);
+      diff.resize(static_cast<std::size_t>(tau_hi) + 2);
+      cmnd.resize(static_cast<std::size_t>(tau_hi) + 2);
+    }
+    void release() {
+      kiss_fftr_free(fwd);
+      kiss_fftr_free(inv);
+      fwd = inv = nullptr;
+    }
+  };
+  YinWork yin_full, yin_early;
 
   // Threshold prior: its cumulative distribution at 0, 1/kThresholds, ..., 1.
   std::array<double, kThresholds + 1> thr_cum{};
@@ -314,6 +356,14 @@ struct PitchTracker::Impl {
   std::vector<std::int16_t> backptr;  // ring [ring_len][n_bins + 1]
   int settle = 0, ring_len = 0;
   std::vector<FrameRecord> records;
+  // Early live value (see early_frame()); tau_early == 0 when the configuration leaves no room for it.
+  int tau_early = 0, span_early = 0, half_early = 0;
+  double early_lo_bin = 0;                 // bins below this lie outside the short window's lags
+  std::vector<EarlyRecord> early;          // ring over the frames between the full and the early frontier
+  std::vector<float> e_delta, e_new, e_obs, e_arg;
+  std::int64_t next_early = 0;             // next hop whose short window is awaited
+  std::int64_t next_live = 0;              // next hop whose live frame is to be emitted
+  std::int64_t live_limit = 0;             // last hop that gets a live frame (known at flush)
   std::int64_t next_frame = 0;      // next hop to analyse
   std::int64_t next_settled = 0;    // next hop to settle
   bool hmm_started = false;
@@ -328,8 +378,6 @@ struct PitchTracker::Impl {
     tau_max = static_cast<int>(std::ceil(fa / cfg.f0_min_hz));
     span = 2 * tau_max + 2;        // window: two longest periods (one period left at the longest lag)
     half = span / 2;
-    nfft = 1;
-    while (nfft < span + tau_max + 2) nfft <<= 1;  // no circular wrap for lags up to tau_max + 1
 
     if (fa != fs) {
       soxr_error_t err = nullptr;
@@ -358,15 +406,7 @@ struct PitchTracker::Impl {
     buf.assign(static_cast<std::size_t>(span) + 8192, 0.0f);
     hum_removed.assign(buf.size(), 0.0f);
 
-    fft_fwd = kiss_fftr_alloc(nfft, 0, nullptr, nullptr);
-    fft_inv = kiss_fftr_alloc(nfft, 1, nullptr, nullptr);
-    if (!fft_fwd || !fft_inv) throw std::runtime_error("FFT setup failed");
-    fft_in.assign(static_cast<std::size_t>(nfft), 0.0f);
-    fft_out.assign(static_cast<std::size_t>(nfft), 0.0f);
-    spec.assign(static_cast<std::size_t>(nfft / 2 + 1), kiss_fft_cpx{});
-    cum_sq.resize(static_cast<std::size_t>(span) + 1);
-    diff.resize(static_cast<std::size_t>(tau_max) + 2);
-    cmnd.resize(static_cast<std::size_t>(tau_max) + 2);
+    yin_full.init(span, tau_max);
 
     // Threshold prior: Beta distribution over the CMNDF threshold (probabilistic YIN, Mauch & Dixon 2014).
     thr_cum[0] = 0;
@@ -402,12 +442,28 @@ struct PitchTracker::Impl {
     backptr.assign(static_cast<std::size_t>(ring_len) * states, 0);
     records.assign(static_cast<std::size_t>(ring_len), FrameRecord{});
     path_scratch.assign(static_cast<std::size_t>(ring_len), 0);
+    // Early live value: a short window for short lags, centred on the frame like the full one.
+    tau_early = static_cast<int>(std::ceil(kEarlyMaxLagS * fa));
+    if (tau_early >= tau_min + 4 && tau_early + 8 <= tau_max) {
+      span_early = 2 * tau_early + 2;
+      half_early = span_early / 2;
+      yin_early.init(span_early, tau_early);
+      early_lo_bin = bin_of(fa / tau_early);
+      const auto lead = static_cast<std::size_t>(std::ceil((half - half_early) / hop_a)) + 4;
+      early.assign(lead, EarlyRecord{});
+      e_delta.assign(states, 0);
+      e_new.assign(states, 0);
+      e_obs.assign(states, 0);
+      e_arg.assign(states, 0);
+    } else {
+      tau_early = 0;
+    }
     reset();
   }
 
   ~Impl() {
-    kiss_fftr_free(fft_fwd);
-    kiss_fftr_free(fft_inv);
+    yin_full.release();
+    yin_early.release();
     if (soxr) soxr_delete(soxr);
   }
 
@@ -431,6 +487,10 @@ struct PitchTracker::Impl {
     nonfinite = 0;
     next_frame = 0;
     next_settled = 0;
+    next_early = 0;
+    next_live = 0;
+    live_limit = std::numeric_limits<std::int64_t>::max();
+    for (auto& e : early) e = EarlyRecord{};
     hmm_started = false;
     best_voiced_bin = 0;
     raw_history.fill(0.0);
@@ -520,10 +580,23 @@ struct PitchTracker::Impl {
   }
   [[nodiscard]] std::int64_t frame_start(std::int64_t k) const { return frame_centre(k) - half; }
 
+  // Full and short windows complete in the order of their last sample (full first on a tie), so that
+  // frames are the same whatever the block sizes.
   void run_frames(FrameSink& sink) {
-    while (frame_start(next_frame) + span <= buf_start + static_cast<std::int64_t>(buf_len)) {
-      analyse_frame(next_frame, sink);
-      ++next_frame;
+    const std::int64_t avail = buf_start + static_cast<std::int64_t>(buf_len);
+    for (;;) {
+      const std::int64_t full_need = frame_start(next_frame) + span;
+      const std::int64_t early_need = tau_early > 0 ? frame_centre(next_early) - half_early + span_early
+                                                    : std::numeric_limits<std::int64_t>::max();
+      if (full_need <= early_need) {
+        if (full_need > avail) break;
+        analyse_frame(next_frame, sink);
+        ++next_frame;
+      } else {
+        if (early_need > avail) break;
+        early_frame(next_early, sink);
+        ++next_early;
+      }
     }
   }
 
@@ -535,9 +608,15 @@ struct PitchTracker::Impl {
   // The difference function is the windowed form d(tau) = sum_{j < S - tau} (x_j - x_{j+tau})^2 over one
   // window of S samples centred on the frame time, divided by its S - tau terms: every lag then describes
   // the same stretch of signal, so the frame time is the window centre whatever the period.
-  std::size_t yin_candidates(const float* x, std::array<Candidate, kMaxCandidates>& out, double& level_db, double& best_d,
-                             double& centre_db) {
-    const auto S = static_cast<std::size_t>(span);
+  std::size_t yin_candidates(const float* x, YinWork& work, std::array<Candidate, kMaxCandidates>& out, double& level_db,
+                             double& best_d, double& centre_db) {
+    const auto S = static_cast<std::size_t>(work.span);
+    std::vector<float>& fft_in = work.fft_in;
+    std::vector<float>& fft_out = work.fft_out;
+    std::vector<kiss_fft_cpx>& spec = work.spec;
+    std::vector<double>& cum_sq = work.cum_sq;
+    std::vector<double>& diff = work.diff;
+    std::vector<double>& cmnd = work.cmnd;
     double mean = 0;
     for (std::size_t i = 0; i < S; ++i) mean += x[i];
     mean /= static_cast<double>(S);
@@ -547,14 +626,14 @@ struct PitchTracker::Impl {
       fft_in[i] = static_cast<float>(v);
       cum_sq[i + 1] = cum_sq[i] + v * v;
     }
-    kiss_fftr(fft_fwd, fft_in.data(), spec.data());
+    kiss_fftr(work.fwd, fft_in.data(), spec.data());
     for (auto& c : spec) {
       c.r = c.r * c.r + c.i * c.i;
       c.i = 0;
     }
-    kiss_fftri(fft_inv, spec.data(), fft_out.data());  // fft_out[tau] = nfft * sum_j x_j x_{j+tau}
+    kiss_fftri(work.inv, spec.data(), fft_out.data());  // fft_out[tau] = nfft * sum_j x_j x_{j+tau}
     const double total = cum_sq[S];
-    const double scale = 1.0 / nfft;
+    const double scale = 1.0 / work.nfft;
     level_db = total > 1e-20 ? 10.0 * std::log10(2.0 * total / static_cast<double>(S)) : -200.0;
     {
       // Level of the middle of the window (+-1 hop): where the frame's time actually is.
@@ -563,7 +642,7 @@ struct PitchTracker::Impl {
       const double e = cum_sq[hi] - cum_sq[lo];
       centre_db = e > 1e-20 ? 10.0 * std::log10(2.0 * e / static_cast<double>(hi - lo)) : -200.0;
     }
-    const auto tmax = static_cast<std::size_t>(tau_max) + 1;
+    const auto tmax = static_cast<std::size_t>(work.tau_hi) + 1;
     diff[0] = 0;
     cmnd[0] = 1;
     double running = 0;
@@ -583,7 +662,7 @@ struct PitchTracker::Impl {
     std::array<Dip, 64> dips{};
     std::size_t n_dips = 0;
     const auto tlo = static_cast<std::size_t>(tau_min);
-    const auto thi = static_cast<std::size_t>(tau_max);
+    const auto thi = static_cast<std::size_t>(work.tau_hi);
     for (std::size_t t = tlo; t <= thi && n_dips < dips.size(); ++t) {
       if (cmnd[t] < cmnd[t - 1] && cmnd[t] <= cmnd[t + 1]) {
         // Sub-sample period (YIN step 5). Near its minimum the difference function of a periodic signal
@@ -660,7 +739,7 @@ struct PitchTracker::Impl {
     rec.time_s = static_cast<double>(frame_centre(k)) / fa;
     rec.level_dbfs = frame_level_dbfs(k);
     double level_db = -200, best_d = 1, centre_db = -200;
-    rec.n_cand = yin_candidates(x, rec.cand, level_db, best_d, centre_db);
+    rec.n_cand = yin_candidates(x, yin_full, rec.cand, level_db, best_d, centre_db);
 
     // Voicing evidence: candidate probability mass, gated by level (absolute floor and relative to the
     // recent peak of periodic frames, so that a far quieter background is not taken for the voice).
@@ -747,16 +826,175 @@ struct PitchTracker::Impl {
       rec.confidence = c < rec.n_cand && wsum > 0 ? static_cast<float>(pv * rec.cand[c].prob / wsum) : 0.0f;
     }
     speaker_update(rec.live_f0 ? bin_of(*rec.live_f0) : -1.0, level_db);
-    LiveFrame live;
-    live.index = k;
-    live.time_s = rec.time_s;
-    live.f0_hz = rec.live_f0;
-    live.voicing = rec.voicing;
-    live.confidence = rec.confidence;
-    live.level_dbfs = rec.level_dbfs;
-    sink.on_live(live);
+    if (k < next_live) {
+      // Already published from the short window: the settled frame carries what was published.
+      const EarlyRecord& e = early[static_cast<std::size_t>(k % static_cast<std::int64_t>(early.size()))];
+      rec.live_f0 = e.live_f0;
+      rec.voicing = e.voicing;
+      rec.confidence = e.confidence;
+    } else {
+      LiveFrame live;
+      live.index = k;
+      live.time_s = rec.time_s;
+      live.f0_hz = rec.live_f0;
+      live.voicing = rec.voicing;
+      live.confidence = rec.confidence;
+      live.level_dbfs = rec.level_dbfs;
+      sink.on_live(live);
+      next_live = k + 1;
+    }
+    if (tau_early > 0) release_early(sink);
 
     if (k - next_settled >= settle) settle_from(k, k - settle, sink);
+  }
+
+  // Early live value. The full window reaches T_max (20 ms) past the frame centre, so the live value of
+  // a high voice would wait for lags it does not need. The same difference function over a short window
+  // (lags up to kEarlyMaxLagS, window of two such lags, centred on the frame like the full one: the
+  // frame time stays the window centre) is complete 12 ms sooner. Its candidates and evidence (the same
+  // gates as a full frame's) are kept per frame; release_early() decodes them on top of the full path.
+  void early_frame(std::int64_t k, FrameSink& sink) {
+    EarlyRecord& e = early[static_cast<std::size_t>(k % static_cast<std::int64_t>(early.size()))];
+    e = EarlyRecord{};
+    e.index = k;
+    const std::int64_t start = frame_centre(k) - half_early;
+    const float* x = buf.data() + (start - buf_start);
+    double level_db = -200, best_d = 1, centre_db = -200;
+    e.n_cand = yin_candidates(x, yin_early, e.cand, level_db, best_d, centre_db);
+    const bool guard = cfg.hum_cancel && hum.settling();
+    double deepest = 1.0;
+    for (std::size_t i = 0; i < e.n_cand; ++i) {
+      const double f = e.cand[i].f0_hz;
+      if (guard && (std::abs(f / 50.0 - 1.0) < 0.015 || std::abs(f / 60.0 - 1.0) < 0.015)) {
+        e.cand[i].prob *= 0.02f;
+        continue;
+      }
+      deepest = std::min(deepest, static_cast<double>(e.cand[i].dip));
+    }
+    auto sigmoid = [](double z) { return 1.0 / (1.0 + std::exp(-z)); };
+    double pv = sigmoid((kVoicedDip - deepest) / kVoicedDipWidth);
+    double removed = 0;
+    if (last_hum_sample >= start) {
+      const float* h = hum_removed.data() + (start - buf_start);
+      for (int i = 0; i < span_early; ++i) removed += static_cast<double>(h[i]) * h[i];
+    }
+    const double removed_db = removed > 1e-20 ? 10.0 * std::log10(2.0 * removed / span_early) : -200.0;
+    const double gate = sigmoid((level_db - cfg.level_floor_dbfs) / 2.0) *
+                        sigmoid((level_db - (peak_db - kLevelGateBelowPeakDb)) / 3.0) *
+                        sigmoid((level_db - (removed_db - 6.0)) / 2.0) *
+                        sigmoid((centre_db - (level_db - kCentreBelowWindowDb)) / 2.0);
+    e.pv = std::clamp(pv * gate, 1e-4, 0.9999);
+    speaker_refresh();
+    const double far_gate = sigmoid((level_db - (peak_db - kFarBelowPeakDb)) / 2.0);
+    for (std::size_t i = 0; i < e.n_cand; ++i) {
+      const auto cb = static_cast<std::size_t>(std::clamp(std::lround(e.cand[i].bin), 0L, static_cast<long>(n_bins - 1)));
+      e.gate[i] = speaker_near[cb] == 0 ? static_cast<float>(far_gate) : 1.0f;
+    }
+    release_early(sink);
+  }
+
+  // Observation probabilities of an early frame, as for a full frame; bins below the short window's
+  // lags carry no evidence either way (kEarlyUnknownObs), so a low voice's path is not pulled away.
+  void early_obs(const EarlyRecord& e) {
+    const auto U = static_cast<std::size_t>(n_bins);
+    const double pv = e.pv;
+    double wmax = 0, pv_eff = 0;
+    for (std::size_t i = 0; i < e.n_cand; ++i) wmax = std::max(wmax, static_cast<double>(e.cand[i].prob));
+    const auto lo = static_cast<std::size_t>(std::clamp(static_cast<int>(std::ceil(early_lo_bin)), 0, n_bins));
+    std::fill(e_obs.begin(), e_obs.begin() + static_cast<std::ptrdiff_t>(lo), kEarlyUnknownObs);
+    std::fill(e_obs.begin() + static_cast<std::ptrdiff_t>(lo), e_obs.begin() + static_cast<std::ptrdiff_t>(U),
+              static_cast<float>(pv * 1e-3 / n_bins));
+    for (std::size_t i = 0; i < e.n_cand && wmax > 0; ++i) {
+      const double w = pv * e.gate[i] * e.cand[i].prob / wmax;
+      pv_eff = std::max(pv_eff, w);
+      const double cb = e.cand[i].bin;
+      const int blo = std::max(static_cast<int>(lo), static_cast<int>(std::floor(cb)) - 2);
+      const int bhi = std::min(n_bins - 1, static_cast<int>(std::ceil(cb)) + 2);
+      for (int b = blo; b <= bhi; ++b) {
+        const double dc = (b - cb) * kBinCents / 25.0;
+        auto& o = e_obs[static_cast<std::size_t>(b)];
+        o = std::max(o, static_cast<float>(w * std::exp(-0.5 * dc * dc)));
+      }
+    }
+    e_obs[U] = static_cast<float>(1.0 - std::min(pv_eff, 0.9999));
+  }
+
+  // One max-product step over e_delta with e_obs, the transitions of hmm_step(), without back pointers.
+  void early_step(std::size_t& best_voiced) {
+    const auto U = static_cast<std::size_t>(n_bins);
+    const auto stay = static_cast<float>(1 - kVoicingSwitch);
+    const float from_unvoiced = e_delta[U] * static_cast<float>(kVoicingSwitch);
+    for (std::size_t b = 0; b < U; ++b) e_new[b] = e_delta[b];
+    for (int d = -jump; d <= jump; ++d) {
+      if (d == 0) continue;
+      const float kd = kernel[static_cast<std::size_t>(d + jump)];
+      const auto lo = static_cast<std::size_t>(std::max(0, -d));
+      const auto hi = static_cast<std::size_t>(std::min(n_bins, n_bins - d));
+      const float* src = e_delta.data() + d;
+      for (std::size_t b = lo; b < hi; ++b) e_new[b] = std::max(e_new[b], kd * src[b]);
+    }
+    for (std::size_t b = 0; b < U; ++b) e_new[b] = e_obs[b] * std::max(stay * e_new[b], from_unvoiced);
+    e_new[U] = e_obs[U] * std::max(e_delta[best_voiced] * static_cast<float>(kVoicingSwitch), e_delta[U] * stay);
+    e_delta.swap(e_new);
+    best_voiced = 0;
+    for (std::size_t b = 1; b < U; ++b)
+      if (e_delta[b] > e_delta[best_voiced]) best_voiced = b;
+    const float dmax = std::max(e_delta[best_voiced], e_delta[U]);
+    const float inv = dmax > 0 ? 1.0f / dmax : 1.0f;
+    for (auto& v : e_delta) v = dmax > 0 ? v * inv : 1.0f;
+  }
+
+  // Publishes the live frames that the short windows decide: the best path from the newest full frame
+  // on through the early frames (zero-lag max-product decoding as for the full frames). A frame is
+  // published early when that path is voiced, within the short window's lags and on one of the frame's
+  // short-window candidates whose dip is deeper than kEarlyMaxDip; otherwise (unvoiced, a low voice, a
+  // shallow dip) it waits for its full window, and so do the frames after it: live frames keep their
+  // order. Unvoiced is never published early, since the short window cannot tell a pause from a voice
+  // below its lags. (Thresholds measured on the quick corpus: without the dip condition, or publishing
+  // unvoiced early, the live RPA fell below that of the full window alone.)
+  void release_early(FrameSink& sink) {
+    if (next_live >= next_early || next_live > live_limit) return;
+    const auto U = static_cast<std::size_t>(n_bins);
+    const auto ring = static_cast<std::int64_t>(early.size());
+    std::size_t bv = best_voiced_bin;
+    std::int64_t j = next_frame;
+    for (; j < next_early; ++j) {
+      const EarlyRecord& e = early[static_cast<std::size_t>(j % ring)];
+      early_obs(e);
+      if (hmm_started || j > next_frame) {
+        if (j == next_frame) std::copy(delta.begin(), delta.end(), e_delta.begin());
+        early_step(bv);
+      } else {  // start of the stream: no full frame yet, the first frame's observations start the path
+        std::copy(e_obs.begin(), e_obs.end(), e_delta.begin());
+        bv = 0;
+        for (std::size_t b = 1; b < U; ++b)
+          if (e_delta[b] > e_delta[bv]) bv = b;
+      }
+      if (j < next_live) continue;
+      if (j != next_live || j > live_limit) break;
+      if (!(e_delta[bv] > e_delta[U]) || static_cast<double>(bv) < early_lo_bin + 2) break;
+      FrameRecord probe;
+      probe.cand = e.cand;
+      probe.n_cand = e.n_cand;
+      const std::size_t c = nearest_candidate(probe, bv);
+      if (c >= e.n_cand || e.cand[c].dip > kEarlyMaxDip) break;
+      double wsum = 0;
+      for (std::size_t i = 0; i < e.n_cand; ++i) wsum += e.cand[i].prob;
+      EarlyRecord& w = early[static_cast<std::size_t>(j % ring)];
+      w.emitted = true;
+      w.live_f0 = e.cand[c].f0_hz;
+      w.voicing = e_delta[bv] / (e_delta[bv] + e_delta[U]);
+      w.confidence = wsum > 0 ? static_cast<float>(e.pv * e.cand[c].prob / wsum) : 0.0f;
+      LiveFrame live;
+      live.index = j;
+      live.time_s = static_cast<double>(frame_centre(j)) / fa;
+      live.f0_hz = w.live_f0;
+      live.voicing = w.voicing;
+      live.confidence = w.confidence;
+      live.level_dbfs = frame_level_dbfs(j);
+      sink.on_live(live);
+      next_live = j + 1;
+    }
   }
 
   // Where the followed voice has been: a histogram of live voiced frames over the pitch bins, each
@@ -1001,6 +1239,7 @@ struct PitchTracker::Impl {
     const auto last = static_cast<std::int64_t>(std::floor(static_cast<double>(total) / hop_samples + 1e-9));
     // Close the level bins of the last frame with silence.
     while (lvl_bin <= 2 * last + 1) level_push(0.0);
+    live_limit = last;
     input_count = total;
     if (soxr) feed_resampler(nullptr, 0, sink);
     while (next_frame <= last) {
