@@ -14,10 +14,12 @@
 // others' delays again, the frames the stalled client lost (gaps in seq) and the count the server told
 // it in dropped_frames events; they must agree.
 //
-// Usage: fanout_bench [--clients N] [--seconds S] [--stall-seconds S] [--settled] [--check]
+// Usage: fanout_bench [--clients N] [--seconds S] [--stall-seconds S] [--settled] [--check | --check-accounting]
 //   --settled: subscribe to settled corrections too (twice the messages; the default is frames at every hop)
 //   --check: exit 1 unless p99 <= 5 ms in both phases, no reading client lost a frame, and the stalled
 //   client's reported drops equal its seq gaps (the bar of the daemon's acceptance tests).
+//   --check-accounting: the same without the delay bars (a functional test that CI runs with few clients:
+//   timing on a shared CI machine is no measurement).
 #include <pthread.h>
 #include <sys/resource.h>
 #include <unistd.h>
@@ -324,7 +326,7 @@ void print(const char* name, const PhaseResult& r, int clients) {
 int main(int argc, char** argv) {
   int clients = 256;
   double seconds = 10.0, stall_s = 4.0;
-  bool check = false;
+  bool check = false, check_accounting = false;
   for (int i = 1; i < argc; ++i) {
     const std::string a = argv[i];
     auto next = [&]() -> std::string {
@@ -338,9 +340,10 @@ int main(int argc, char** argv) {
     else if (a == "--seconds") seconds = std::stod(next());
     else if (a == "--stall-seconds") stall_s = std::stod(next());
     else if (a == "--check") check = true;
+    else if (a == "--check-accounting") check_accounting = true;
     else if (a == "--settled") g_settled = true;
     else {
-      std::cerr << "usage: fanout_bench [--clients N] [--seconds S] [--stall-seconds S] [--settled] [--check]\n";
+      std::cerr << "usage: fanout_bench [--clients N] [--seconds S] [--stall-seconds S] [--settled] [--check | --check-accounting]\n";
       return 2;
     }
   }
@@ -359,14 +362,14 @@ int main(int argc, char** argv) {
   std::printf("stalled client: stopped reading for %.1f s; frames lost (seq gaps) %lld, reported in dropped_frames %lld%s\n",
               stall_s, static_cast<long long>(b.stalled_gaps), static_cast<long long>(b.stalled_reported),
               b.stalled_closed ? ", then closed" : "");
-  if (check) {
+  if (check || check_accounting) {
     bool ok = true;
     auto fail = [&](const std::string& why) {
       std::printf("FAIL: %s\n", why.c_str());
       ok = false;
     };
-    if (a.p99 > 5.0) fail("p99 added delay above 5 ms with every client reading");
-    if (b.p99 > 5.0) fail("p99 added delay above 5 ms with one client stalled");
+    if (check && a.p99 > 5.0) fail("p99 added delay above 5 ms with every client reading");
+    if (check && b.p99 > 5.0) fail("p99 added delay above 5 ms with one client stalled");
     if (a.lost_by_readers != 0 || b.lost_by_readers != 0) fail("a client that kept reading lost frames");
     if (b.stalled_gaps <= 0) fail("the stalled client lost nothing: the stall did not fill its queue");
     if (b.stalled_gaps != b.stalled_reported) fail("the stalled client's drops were not all reported");

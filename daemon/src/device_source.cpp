@@ -21,9 +21,9 @@
 //
 // Thread contract:
 //   audio thread     on_audio(), RtAudio's callback: copies the chosen channel, or the mean of all channels
-//                    through scratch_ (sized before the stream starts), into the ring, and counts frames
-//                    and input overflows in atomics; it drops a buffer that the driver failed to refill.
-//                    No allocation, lock, log or post.
+//                    through a scratch buffer (sized before the stream starts), into the ring, and counts
+//                    frames and input overflows in atomics; it drops a buffer that the driver failed to
+//                    refill. No allocation, lock, log or post.
 //   RtAudio threads  on_rtaudio_error<slot>(): RtAudio 5.2 calls it from whichever thread meets the error,
 //                    the audio thread included; it only bumps atomics in the source's error slot.
 //   monitor thread   monitor(), started by start(); while it runs it is the only user of the RtAudio
@@ -32,7 +32,8 @@
 //                    device found again by name on the same ring and calls SourceListener::on_device_back.
 //   control thread   make_device_source(), list_input_devices(), start(), stop(), the destructor. start()
 //                    opens the stream before the monitor exists and stop() joins the monitor before it
-//                    closes the stream, so the RtAudio object never has two users at once.
+//                    closes the stream, so the RtAudio object never has two users of ours at once. (RtAudio
+//                    adds one of its own for JACK: see kJackSelfCloseLimit.)
 #include <RtAudio.h>
 
 #include <algorithm>
@@ -71,10 +72,16 @@ constexpr auto kSilenceLimit = 1s;
 constexpr std::uint32_t kWarningsPerSecondLimit = 10;
 // Waits before each reopening attempt; the last one repeats.
 constexpr std::array<std::chrono::milliseconds, 4> kBackoff = {250ms, 500ms, 1000ms, 2000ms};
-// RtAudio closes a JACK stream by itself, from a thread it spawns, when the server shuts its client
-// down. Closing the stream here at the same moment would free it twice, so that thread gets this long
-// to finish first.
-constexpr auto kJackSelfCloseGrace = 500ms;
+// RtAudio closes a JACK stream by itself, from a thread it spawns, when the server shuts its client down.
+// Closing that stream here as well would close the client twice, and libjack (1.9.21) deadlocks when
+// clients of a dead server are closed, or opened, from two threads at once. So while a JACK stream still
+// counts as running but no longer calls back, nothing here calls into JACK: RtAudio's close is awaited
+// until the stream stops running (RtAudio has closed it), the callback runs again (the server is alive,
+// so no shutdown is coming) or the limit passes. The monitor then closes the stream anyway (a shutdown
+// that late is not coming); stop() instead detaches the callback and leaves the stream and its RtAudio
+// object to RtAudio, so as to return promptly without risking the double close.
+constexpr auto kJackSelfCloseLimit = 10s;
+constexpr auto kJackSelfCloseLimitOnStop = 250ms;
 
 // The rates the pitch tracker accepts (dsp::TrackerConfig::sample_rate_hz).
 constexpr unsigned kMinTrackerRate = 8000;
@@ -339,6 +346,21 @@ FoundDevice find_device(const std::string& text) {
 
 // ---------------------------------------------------------------------------------------------------
 
+// Everything the audio callback touches besides the ring. It is on the heap, apart from the source, so
+// that stop() can leave a stream whose closing is RtAudio's to RtAudio together with this state (see
+// kJackSelfCloseLimit): the callback then sees `detached` and touches nothing else.
+struct CallbackState {
+  SampleRing* ring = nullptr;
+  std::size_t channels = 1;         // channels per frame in the callback (1 when one channel is chosen)
+  std::vector<float> scratch;       // the mean of the channels, one buffer at a time
+  std::size_t error_slot = kErrorSlots;
+  std::uint32_t warnings_seen = 0;  // the audio thread's copy of its slot's warning count
+  std::atomic<std::int64_t> frames{0};  // frames delivered: the heartbeat
+  std::atomic<std::int64_t> xruns{0};
+  std::atomic<int> in_callback{0};  // with `detached`, lets stop() know no callback still runs
+  std::atomic<bool> detached{false};
+};
+
 class DeviceSource final : public AudioSource {
  public:
   DeviceSource(std::unique_ptr<RtAudio> rt, InputDevice device, const SourceOptions& options)
@@ -347,11 +369,15 @@ class DeviceSource final : public AudioSource {
         options_(options),
         description_("device:" + device_.qualified_name()),
         rate_hz_(choose_rate(device_, options.sample_rate_hz)),
-        error_slot_(claim_error_slot()) {}
+        owned_state_(std::make_unique<CallbackState>()),
+        state_(owned_state_.get()) {
+    state_->error_slot = claim_error_slot();
+  }
 
   ~DeviceSource() override {
     DeviceSource::stop();
-    release_error_slot(error_slot_);
+    // A stream left to RtAudio may still report errors through the slot: then it stays claimed.
+    if (owned_state_) release_error_slot(state_->error_slot);
   }
 
   DeviceSource(const DeviceSource&) = delete;
@@ -362,7 +388,8 @@ class DeviceSource final : public AudioSource {
   // Control thread.
   void start(SampleRing& ring, SourceListener& listener) override {
     if (monitor_.joinable()) throw SourceError(description_ + ": already started");
-    ring_ = &ring;
+    if (!rt_) throw SourceError(description_ + ": cannot start again, RtAudio is still closing its last stream");
+    state_->ring = &ring;
     listener_ = &listener;
     {
       const std::lock_guard lock(wake_mutex_);
@@ -385,12 +412,23 @@ class DeviceSource final : public AudioSource {
     }
     wake_.notify_all();
     if (monitor_.joinable()) monitor_.join();
+    if (!rt_) return;
+    if (device_.api == RtAudio::UNIX_JACK) {
+      // A healthy stream calls back every period; allow a few of them before suspecting anything.
+      const auto period = std::chrono::duration<double>(static_cast<double>(stream_frames_) / rate_hz_);
+      const auto limit = std::max<Clock::duration>(
+          kJackSelfCloseLimitOnStop, std::chrono::duration_cast<Clock::duration>(3 * period));
+      if (!await_jack_self_close(limit, false)) {
+        leave_to_rtaudio();
+        return;
+      }
+    }
     close_stream();
   }
 
   [[nodiscard]] double sample_rate_hz() const override { return rate_hz_; }
   [[nodiscard]] int channel() const override { return options_.channel; }
-  [[nodiscard]] std::int64_t xruns() const override { return xruns_.load(std::memory_order_relaxed); }
+  [[nodiscard]] std::int64_t xruns() const override { return state_->xruns.load(std::memory_order_relaxed); }
 
  private:
   // What the monitor compares against on each poll.
@@ -405,43 +443,50 @@ class DeviceSource final : public AudioSource {
   // Audio thread.
   static int on_audio(void* /*output*/, void* input, unsigned int frames, double /*stream_time*/,
                       RtAudioStreamStatus status, void* user) noexcept {
-    auto& self = *static_cast<DeviceSource*>(user);
-    if ((status & RTAUDIO_INPUT_OVERFLOW) != 0) self.xruns_.fetch_add(1, std::memory_order_relaxed);
-    // PulseAudio and ALSA call back first and read the device afterwards, and a failed read is only a
-    // warning: a warning since the last call means this buffer was not refilled. Dropping it keeps a
-    // failing driver, which then calls back as fast as it can, from filling the ring with a stale buffer.
-    bool stale = false;
-    if (self.error_slot_ < kErrorSlots) {
-      const std::uint32_t warnings = g_error_slots[self.error_slot_].warnings.load(std::memory_order_relaxed);
-      stale = warnings != self.warnings_seen_by_audio_;
-      self.warnings_seen_by_audio_ = warnings;
-    }
-    if (input != nullptr && !stale) {
-      const auto* samples = static_cast<const float*>(input);
-      if (self.stream_channels_ == 1) {
-        self.ring_->write(samples, frames);
-      } else {
-        self.write_mean(samples, frames);
+    auto& state = *static_cast<CallbackState*>(user);
+    // Sequentially consistent with leave_to_rtaudio(): either this call sees `detached`, or that
+    // function sees this call in progress and waits for it.
+    state.in_callback.fetch_add(1);
+    if (!state.detached.load()) {
+      if ((status & RTAUDIO_INPUT_OVERFLOW) != 0) state.xruns.fetch_add(1, std::memory_order_relaxed);
+      // PulseAudio and ALSA call back first and read the device afterwards, and a failed read is only a
+      // warning: a warning since the last call means this buffer was not refilled. Dropping it keeps a
+      // failing driver, which then calls back as fast as it can, from filling the ring with a stale
+      // buffer.
+      bool stale = false;
+      if (state.error_slot < kErrorSlots) {
+        const std::uint32_t warnings = g_error_slots[state.error_slot].warnings.load(std::memory_order_relaxed);
+        stale = warnings != state.warnings_seen;
+        state.warnings_seen = warnings;
       }
+      if (input != nullptr && !stale) {
+        const auto* samples = static_cast<const float*>(input);
+        if (state.channels == 1) {
+          state.ring->write(samples, frames);
+        } else {
+          write_mean(state, samples, frames);
+        }
+      }
+      state.frames.fetch_add(frames, std::memory_order_relaxed);
     }
-    self.frames_.fetch_add(frames, std::memory_order_relaxed);
+    state.in_callback.fetch_sub(1);
     return 0;
   }
 
   // Audio thread. Interleaved frames -> their mean, through the scratch buffer in pieces of its size,
   // so that a callback larger than planned still allocates nothing.
-  void write_mean(const float* samples, std::size_t frames) noexcept {
-    const std::size_t channels = stream_channels_;
+  static void write_mean(CallbackState& state, const float* samples, std::size_t frames) noexcept {
+    const std::size_t channels = state.channels;
     const float scale = 1.0f / static_cast<float>(channels);
-    float* out = scratch_.data();
+    float* out = state.scratch.data();
     while (frames > 0) {
-      const std::size_t n = std::min(frames, scratch_.size());
+      const std::size_t n = std::min(frames, state.scratch.size());
       for (std::size_t i = 0; i < n; ++i) {
         float sum = 0.0f;
         for (std::size_t c = 0; c < channels; ++c) sum += samples[i * channels + c];
         out[i] = sum * scale;
       }
-      ring_->write(out, n);
+      state.ring->write(out, n);
       samples += n * channels;
       frames -= n;
     }
@@ -473,20 +518,21 @@ class DeviceSource final : public AudioSource {
     stream_options.streamName = kClientName;
     try {
       // Until a stream is open RtAudio throws; from then on its errors go to the error callback.
-      rt_->openStream(nullptr, &input, RTAUDIO_FLOAT32, rate, &frames, &DeviceSource::on_audio, this,
-                      &stream_options, kErrorCallbacks[error_slot_]);
+      rt_->openStream(nullptr, &input, RTAUDIO_FLOAT32, rate, &frames, &DeviceSource::on_audio, state_,
+                      &stream_options, kErrorCallbacks[state_->error_slot]);
     } catch (const std::exception& e) {
       throw SourceError(description_ + ": cannot open it: " + one_line(e.what()));
     }
 
     // Read by the audio thread; written only while no stream runs.
-    stream_channels_ = input.nChannels;
-    if (stream_channels_ > 1) {
-      scratch_.assign(std::max<std::size_t>({frames, options_.buffer_frames, 64}), 0.0f);
+    state_->channels = input.nChannels;
+    if (state_->channels > 1) {
+      state_->scratch.assign(std::max<std::size_t>({frames, options_.buffer_frames, 64}), 0.0f);
     }
+    state_->warnings_seen = g_error_slots[state_->error_slot].warnings.load(std::memory_order_relaxed);
+    stream_frames_ = frames;
     const unsigned delivered = rt_->getStreamSampleRate();
     if (delivered > 0) rate_hz_ = delivered;
-    warnings_seen_by_audio_ = g_error_slots[error_slot_].warnings.load(std::memory_order_relaxed);
 
     rt_->startStream();
     if (!rt_->isStreamRunning()) {
@@ -496,6 +542,7 @@ class DeviceSource final : public AudioSource {
   }
 
   // Control or monitor thread. Best effort: RtAudio frees the stream in closeStream() whatever happened.
+  // For a JACK stream, only once await_jack_self_close() has said so.
   void close_stream() noexcept {
     try {
       if (rt_->isStreamRunning()) rt_->abortStream();
@@ -503,6 +550,37 @@ class DeviceSource final : public AudioSource {
     } catch (const std::exception&) {
       // Errors of a stream with an error callback are reported there; nothing is left to undo here.
     }
+  }
+
+  // Control or monitor thread, JACK only: see kJackSelfCloseLimit. Waits, without calling into JACK,
+  // while the stream counts as running and the callback does not run, up to `limit`. True when
+  // close_stream() may go ahead: RtAudio has closed the stream itself, the callback runs (the server is
+  // alive) or, for the monitor (interruptible), the limit has passed; false when the limit passed for
+  // stop(), or when stop() is asked for during the monitor's wait.
+  bool await_jack_self_close(Clock::duration limit, bool interruptible) {
+    const auto deadline = Clock::now() + limit;
+    const std::int64_t frames = state_->frames.load(std::memory_order_relaxed);
+    while (rt_->isStreamRunning()) {
+      if (state_->frames.load(std::memory_order_relaxed) != frames) return true;
+      if (Clock::now() >= deadline) return interruptible;
+      if (interruptible) {
+        if (wait_or_stop(20ms)) return false;
+      } else {
+        std::this_thread::sleep_for(5ms);
+      }
+    }
+    return true;
+  }
+
+  // Control thread: the end of stop() when RtAudio may still be closing the stream. The callback is
+  // detached (it returns at once from now on, and none is left running when this returns), and the
+  // RtAudio object and the callback state are left to RtAudio's closing thread, never freed.
+  void leave_to_rtaudio() noexcept {
+    state_->detached.store(true);
+    const auto deadline = Clock::now() + 1s;
+    while (state_->in_callback.load() != 0 && Clock::now() < deadline) std::this_thread::yield();
+    (void)rt_.release();
+    (void)owned_state_.release();
   }
 
   // Monitor thread. True when stop() was asked for (at once, or during the wait).
@@ -514,10 +592,10 @@ class DeviceSource final : public AudioSource {
   Watch fresh_watch() const {
     Watch watch;
     const auto now = Clock::now();
-    watch.frames = frames_.load(std::memory_order_relaxed);
+    watch.frames = state_->frames.load(std::memory_order_relaxed);
     watch.progress = now;
-    watch.errors = g_error_slots[error_slot_].errors.load(std::memory_order_acquire);
-    watch.warnings = g_error_slots[error_slot_].warnings.load(std::memory_order_relaxed);
+    watch.errors = g_error_slots[state_->error_slot].errors.load(std::memory_order_acquire);
+    watch.warnings = g_error_slots[state_->error_slot].warnings.load(std::memory_order_relaxed);
     watch.warning_window = now;
     return watch;
   }
@@ -525,20 +603,21 @@ class DeviceSource final : public AudioSource {
   // Monitor thread. Why the device counts as lost, or empty while it is fine.
   std::string check(Watch& watch) {
     const auto now = Clock::now();
-    const ErrorSlot& slot = g_error_slots[error_slot_];
+    const std::size_t slot_index = state_->error_slot;
+    const ErrorSlot& slot = g_error_slots[slot_index];
 
     const std::uint32_t errors = slot.errors.load(std::memory_order_acquire);
     if (errors != watch.errors) {
       watch.errors = errors;
       // A shared slot may carry another source's error; the checks below judge this stream itself.
-      if (error_slot_ < kErrorSlots) {
+      if (slot_index < kErrorSlots) {
         return std::string("the driver reported a ") + error_type_text(slot.last_error.load(std::memory_order_relaxed));
       }
     }
     if (!rt_->isStreamRunning()) {
       return device_.api == RtAudio::UNIX_JACK ? "the JACK server closed the stream" : "the stream stopped";
     }
-    const std::int64_t frames = frames_.load(std::memory_order_relaxed);
+    const std::int64_t frames = state_->frames.load(std::memory_order_relaxed);
     if (frames != watch.frames) {
       watch.frames = frames;
       watch.progress = now;
@@ -546,7 +625,7 @@ class DeviceSource final : public AudioSource {
       return "no audio for more than 1 s";
     }
     const std::uint32_t warnings = slot.warnings.load(std::memory_order_relaxed);
-    if (error_slot_ < kErrorSlots && warnings - watch.warnings >= kWarningsPerSecondLimit) {
+    if (slot_index < kErrorSlots && warnings - watch.warnings >= kWarningsPerSecondLimit) {
       return "the driver keeps reporting errors";
     }
     if (now - watch.warning_window >= 1s) {
@@ -563,12 +642,7 @@ class DeviceSource final : public AudioSource {
       const std::string reason = check(watch);
       if (reason.empty()) continue;
       listener_->on_device_lost(description_, reason);
-      if (device_.api == RtAudio::UNIX_JACK) {
-        const auto deadline = Clock::now() + kJackSelfCloseGrace;
-        while (rt_->isStreamRunning() && Clock::now() < deadline) {
-          if (wait_or_stop(20ms)) break;
-        }
-      }
+      if (device_.api == RtAudio::UNIX_JACK && !await_jack_self_close(kJackSelfCloseLimit, true)) return;
       close_stream();
       if (!reopen()) return;
       listener_->on_device_back(description_);
@@ -592,21 +666,15 @@ class DeviceSource final : public AudioSource {
     }
   }
 
-  std::unique_ptr<RtAudio> rt_;
-  const InputDevice device_;  // as found by make_device_source(); its index is looked up again per open
+  std::unique_ptr<RtAudio> rt_;  // null once left to RtAudio by stop()
+  const InputDevice device_;     // as found by make_device_source(); its index is looked up again per open
   const SourceOptions options_;
   const std::string description_;
-  double rate_hz_;  // planned before start(), delivered after
-  const std::size_t error_slot_;
+  double rate_hz_;               // planned before start(), delivered after
+  unsigned stream_frames_ = 0;   // frames per callback of the open stream
 
-  // Shared with the audio thread; written only while no stream runs.
-  SampleRing* ring_ = nullptr;
-  std::size_t stream_channels_ = 1;  // channels per frame in the callback (1 when one channel is chosen)
-  std::vector<float> scratch_;       // the mean of the channels, one buffer at a time
-  std::uint32_t warnings_seen_by_audio_ = 0;  // the audio thread's own copy (see on_audio)
-
-  std::atomic<std::int64_t> frames_{0};  // frames delivered by the callback: the heartbeat
-  std::atomic<std::int64_t> xruns_{0};
+  std::unique_ptr<CallbackState> owned_state_;  // null once left to RtAudio by stop()
+  CallbackState* const state_;                  // valid for the source's life either way
 
   SourceListener* listener_ = nullptr;
   std::thread monitor_;

@@ -164,6 +164,10 @@ int run(const pw::DaemonConfig& config) {
   options.bind = config.bind;
   options.port = config.port;
   options.web_root = config.web_root.empty() ? fs::path(PITCHWIRE_DEFAULT_WEB_ROOT) : config.web_root;
+  if (std::error_code ec; !fs::is_directory(options.web_root, ec)) {
+    spdlog::warn("web_root {}: no such folder; the live page will not be served (set web_root)",
+                 options.web_root.string());
+  }
   options.max_clients = config.max_clients;
   options.max_message_bytes = config.max_message_bytes;
   options.queue_frames = config.queue_frames;

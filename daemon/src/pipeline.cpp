@@ -55,12 +55,15 @@ class Forwarder final : public dsp::FrameSink {
     s.time_s = time_s;
     s.window_s = static_cast<double>(filled_) * options_.tracker.hop_ms / 1000.0;
     s.voiced_fraction = filled_ ? static_cast<double>(scratch_.size()) / static_cast<double>(filled_) : 0.0;
-    s.f0_sd_st = dsp::f0_sd_semitones(scratch_);
+    // Rounded as frames are (3 decimals): the values come from single-precision F0.
+    auto round3 = [](double x) { return std::round(x * 1000.0) / 1000.0; };
+    if (const auto sd = dsp::f0_sd_semitones(scratch_)) s.f0_sd_st = round3(*sd);
     if (const auto range = dsp::f0_range(scratch_)) {  // sorts scratch_ (after the SD, which does not care)
-      s.f0_p5_hz = range->p5_hz;
-      s.f0_p50_hz = range->median_hz;
-      s.f0_p95_hz = range->p95_hz;
+      s.f0_p5_hz = round3(range->p5_hz);
+      s.f0_p50_hz = round3(range->median_hz);
+      s.f0_p95_hz = round3(range->p95_hz);
     }
+    s.voiced_fraction = round3(s.voiced_fraction);
     return s;
   }
 

@@ -32,6 +32,7 @@
 #include <boost/beast/core.hpp>
 #include <boost/beast/http.hpp>
 #include <boost/beast/websocket.hpp>
+#include <spdlog/fmt/fmt.h>
 #include <spdlog/spdlog.h>
 
 #include "pitchwire/protocol/encode.h"
@@ -269,6 +270,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
   void deliver_frame(const std::shared_ptr<const FrameBatch>& batch) {
     if (!subscribed_ || closing_) return;
     if (!protocol::passes(batch->frame.index, decimation_)) return;
+    if (!first_frame_index_) first_frame_index_ = batch->frame.index;
     std::shared_ptr<const std::string> body = batch->bodies[fields_.bits()];
     if (!body) {
       // Subscribed between the encoding and now: encode for this connection alone.
@@ -280,6 +282,8 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
   void deliver_settled(const std::shared_ptr<const SettledBatch>& batch) {
     if (!subscribed_ || !settled_ || closing_) return;
     if (!protocol::passes(batch->index, decimation_)) return;
+    // A correction only for a frame this connection was sent (or would have been, had it not dropped it).
+    if (!first_frame_index_ || batch->index < *first_frame_index_) return;
     push_frame(protocol::ServerType::kSettled, batch, batch->body.data(), batch->body.size());
   }
 
@@ -303,10 +307,10 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       }
     });
     if (!drain) {
-      // Keep the message being written: its buffers are in use until on_write.
-      while (queue_.size() > (writing_ ? 1u : 0u)) queue_.pop_back();
+      queue_.clear();  // the message being written, if any, is in_flight_, not in the queue
+      queued_frames_ = 0;
     }
-    if (!writing_ && queue_.empty()) start_close();
+    if (!in_flight_ && queue_.empty()) start_close();
   }
 
  private:
@@ -395,7 +399,9 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     const std::string& id = protocol::id_of(request);
     if (!take_request_token()) {
       refuse({ErrorCode::kRateLimited,
-              "too many requests: at most " + std::to_string(server_->options.requests_per_s) + " per second", id});
+              fmt::format("too many requests: at most {:g} per second, bursts of {:g}",
+                          server_->options.requests_per_s, server_->options.request_burst),
+              id});
       return;
     }
     const protocol::ClientType type = protocol::type_of(request);
@@ -549,16 +555,19 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
 
   void push_frame(protocol::ServerType type, std::shared_ptr<const void> owner, const char* data, std::size_t size) {
     if (queued_frames_ >= server_->options.queue_frames) {
-      // Newest wins: drop the oldest frame that is not being written. Its seq becomes a gap.
-      const auto first = queue_.begin() + (writing_ ? 1 : 0);
-      auto victim = std::find_if(first, queue_.end(), [](const Outgoing& o) { return o.droppable; });
+      // Newest wins: drop the oldest queued frame (the one being written is not in the queue). Its seq
+      // becomes a gap.
+      auto victim = std::find_if(queue_.begin(), queue_.end(), [](const Outgoing& o) { return o.droppable; });
       if (victim != queue_.end()) {
         queue_.erase(victim);
         --queued_frames_;
         ++dropped_unreported_;
         ++dropped_total_;
+        // Behind: dropping frames with no pause of a second or more since behind_since_. A client that
+        // reads in bursts but never catches up for a whole second stays behind.
         const auto now = Clock::now();
-        if (!behind_since_) behind_since_ = now;
+        if (!behind_since_ || now - last_drop_ > std::chrono::seconds(1)) behind_since_ = now;
+        last_drop_ = now;
         if (now - *behind_since_ > std::chrono::duration<double>(server_->options.slow_client_s)) {
           spdlog::info("closing a client that stayed behind for more than {} s ({} frames dropped)",
                        server_->options.slow_client_s, dropped_total_);
@@ -573,25 +582,27 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
   }
 
   void maybe_write() {
-    if (writing_ || closing_ || queue_.empty()) return;
+    if (in_flight_ || closing_ || queue_.empty()) return;
     write_front();
   }
 
+  // Moves the oldest message out of the queue and writes it. It stays in in_flight_ (its buffers are in
+  // use) until on_write, so that dropping frames from the queue never touches it.
   void write_front() {
-    writing_ = true;
-    const Outgoing& o = queue_.front();
-    const std::array<net::const_buffer, 2> buffers{net::buffer(o.head.view()), net::buffer(o.body)};
+    in_flight_.emplace(std::move(queue_.front()));
+    queue_.pop_front();
+    if (in_flight_->droppable) --queued_frames_;
+    const std::array<net::const_buffer, 2> buffers{net::buffer(in_flight_->head.view()),
+                                                   net::buffer(in_flight_->body)};
     ws_.async_write(buffers, beast::bind_front_handler(&WsSession::on_write, shared_from_this()));
   }
 
   void on_write(beast::error_code ec, std::size_t) {
-    writing_ = false;
+    in_flight_.reset();
     if (ec) {
       finish();
       return;
     }
-    if (queue_.front().droppable) --queued_frames_;
-    queue_.pop_front();
     if (closing_) {
       if (queue_.empty()) {
         start_close();
@@ -600,7 +611,6 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       }
       return;
     }
-    if (queue_.empty()) behind_since_.reset();
     if (dropped_unreported_ > 0) {
       const auto now = Clock::now();
       if (queued_frames_ * 2 < server_->options.queue_frames || now - last_drop_report_ >= std::chrono::seconds(1)) {
@@ -634,10 +644,10 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
   std::shared_ptr<Server::Impl> server_;
   protocol::Role role_;
   beast::flat_buffer read_buffer_;
-  std::deque<Outgoing> queue_;
-  std::size_t queued_frames_ = 0;
+  std::deque<Outgoing> queue_;           // waiting to be written
+  std::optional<Outgoing> in_flight_;    // being written
+  std::size_t queued_frames_ = 0;        // frames (droppable) in queue_
   std::uint64_t next_seq_ = 1;
-  bool writing_ = false;
   bool closing_ = false;
   bool close_started_ = false;
   bool finished_ = false;
@@ -648,10 +658,12 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
   bool settled_ = false;
   protocol::FieldSet fields_ = protocol::FieldSet::all();
   int decimation_ = 1;
+  std::optional<std::int64_t> first_frame_index_;  // index of the first frame queued for this connection
 
   std::int64_t dropped_unreported_ = 0;
   std::int64_t dropped_total_ = 0;
   std::optional<Clock::time_point> behind_since_;
+  Clock::time_point last_drop_{};
   Clock::time_point last_drop_report_{};
 
   double tokens_ = 0.0;
@@ -693,6 +705,10 @@ class HttpSession : public std::enable_shared_from_this<HttpSession> {
     }
     http::request<http::string_body> req = parser_->release();
     const std::string host(req[http::field::host]);
+    if (host.empty()) {
+      send_error(http::status::bad_request, "no Host header", req.version());  // RFC 9112 3.2
+      return;
+    }
     if (!server_->host_allowed(host)) {
       // DNS rebinding: a page from another site reaching us under its own name.
       spdlog::warn("refused a request with Host \"{}\"", host.substr(0, 80));
@@ -775,7 +791,7 @@ class HttpSession : public std::enable_shared_from_this<HttpSession> {
 
   void serve_file(const http::request<http::string_body>& req) {
     if (req.method() != http::verb::get && req.method() != http::verb::head) {
-      send_error(http::status::method_not_allowed, "only GET and HEAD", req.version());
+      send_error(http::status::method_not_allowed, "only GET and HEAD", req.version(), "GET, HEAD");
       return;
     }
     const auto decoded = decode_path(path_of(std::string_view(req.target().data(), req.target().size())));
@@ -792,8 +808,17 @@ class HttpSession : public std::enable_shared_from_this<HttpSession> {
         return;
       }
     }
+    // An absolute path ("//etc/passwd") would replace the root when joined: never a file of ours.
+    if (relative.has_root_directory() || relative.has_root_name()) {
+      send_error(http::status::bad_request, "bad path", req.version());
+      return;
+    }
     std::error_code fs_ec;
     const std::filesystem::path root = std::filesystem::canonical(server_->options.web_root, fs_ec);
+    if (fs_ec || root.empty()) {  // no web root: nothing to serve (never fall back to "" or "/")
+      send_error(http::status::not_found, "not found", req.version());
+      return;
+    }
     const std::filesystem::path full = std::filesystem::weakly_canonical(root / relative, fs_ec);
     // The canonical path (symlinks resolved) must still lie inside the root.
     const auto [root_end, full_it] = std::mismatch(root.begin(), root.end(), full.begin(), full.end());
@@ -838,9 +863,11 @@ class HttpSession : public std::enable_shared_from_this<HttpSession> {
     res.set("Content-Security-Policy", "default-src 'self'; connect-src 'self'; frame-ancestors 'none'");
   }
 
-  void send_error(http::status status, const std::string& text, unsigned version) {
+  // allow: the Allow header a 405 must carry (RFC 9110 15.5.6).
+  void send_error(http::status status, const std::string& text, unsigned version, const char* allow = nullptr) {
     auto res = std::make_shared<http::response<http::string_body>>(status, version);
     set_common_headers(*res);
+    if (allow) res->set(http::field::allow, allow);
     res->set(http::field::content_type, "text/plain; charset=utf-8");
     res->body() = text + "\n";
     res->prepare_payload();

@@ -1,9 +1,10 @@
 // test_device_source.cpp: the RtAudio device source against a JACK server of the test's own (the dummy
-// driver: no sound hardware), with in-process JACK clients playing steady vowels of known F0.
+// driver: no sound hardware), with JACK player processes playing steady vowels of known F0.
 //
 // The player "pitchwire-test-player" has three output ports: out_1 a vowel at 220 Hz, out_2 one at 330 Hz
 // and out_3 the 220 Hz vowel inverted, so that the mean of the three channels is the 330 Hz vowel over 3.
-// "pitchwire-test-second" (one port) makes the fragment "pitchwire-test" ambiguous.
+// "pitchwire-test-second" (one port) makes the fragment "pitchwire-test" ambiguous. The players run in
+// processes of their own (this program started again: see jack_fixture.h).
 //
 // The suite points HOME at a folder of its own whose ~/.jackdrc would run a script leaving a mark: libjack
 // runs it whenever a client would start a server, so the mark's absence shows that nothing did.
@@ -36,6 +37,9 @@
 namespace pw = pitchwire;
 using namespace std::chrono_literals;
 using Clock = std::chrono::steady_clock;
+
+// When this program is started as a JACK player process, it plays here and exits before any test runs.
+[[maybe_unused]] const int g_jack_player = pw::test::run_jack_player_if_asked();
 
 namespace {
 
@@ -185,23 +189,30 @@ class DeviceSourceTest : public ::testing::Test {
     ::setenv("HOME", home_.c_str(), 1);
 
     const std::vector<float> low = pw::test::steady_vowel_loop(kF0Low, kJackRate);
-    std::vector<float> high = pw::test::steady_vowel_loop(kF0High, kJackRate);
+    const std::vector<float> high = pw::test::steady_vowel_loop(kF0High, kJackRate);
     std::vector<float> low_inverted = low;
     for (float& s : low_inverted) s = -s;
     high_rms_ = rms(high);
-    player_ = std::make_unique<pw::test::JackPlayer>(
-        kPlayer, std::vector<std::vector<float>>{low, std::move(high), std::move(low_inverted)});
-    second_ = std::make_unique<pw::test::JackPlayer>(kSecond, std::vector<std::vector<float>>{low});
+    const std::string low_file = (home_ / "low.f32").string();
+    const std::string high_file = (home_ / "high.f32").string();
+    const std::string inverted_file = (home_ / "low-inverted.f32").string();
+    if (!pw::test::write_samples(low_file, low) || !pw::test::write_samples(high_file, high) ||
+        !pw::test::write_samples(inverted_file, low_inverted)) {
+      suite_problem_ = "cannot write the players' signals to " + home_.string();
+    }
+    player_ = std::make_unique<pw::test::JackPlayerProcess>(
+        kPlayer, std::vector<std::string>{low_file, high_file, inverted_file}, home_.string());
+    second_ = std::make_unique<pw::test::JackPlayerProcess>(kSecond, std::vector<std::string>{low_file}, home_.string());
     server_ = std::make_unique<pw::test::JackServer>(kJackRate, kJackPeriod, (home_ / "jackd.log").string());
   }
 
   static void TearDownTestSuite() {
     player_.reset();
     second_.reset();
-    // jackd keeps its name registered (in /dev/shm/jack-shm-registry, which holds 8 names) when it is
-    // stopped while clients are attached, as the last test does; starting it again under the same name
-    // reclaims the entry, and stopping it without clients releases it.
-    if (!server_->started()) server_->start();
+    // jackd keeps its name registered when it is stopped while clients are attached, as the last test
+    // does (see jack_fixture.h): starting it again under the same name and stopping it without clients
+    // releases the entry.
+    if (!server_->started()) (void)server_->start();
     server_.reset();
     if (old_home_) {
       ::setenv("HOME", old_home_->c_str(), 1);
@@ -209,41 +220,40 @@ class DeviceSourceTest : public ::testing::Test {
       ::unsetenv("HOME");
     }
     std::error_code ignored;
-    //DEBUG std::filesystem::remove_all(home_, ignored);
+    if (!std::getenv("PITCHWIRE_TEST_KEEP")) std::filesystem::remove_all(home_, ignored);
   }
 
   // Every test starts with the server and both players running (a test may have stopped them).
   void SetUp() override {
+    ASSERT_TRUE(suite_problem_.empty()) << suite_problem_;
     if (!server_->started()) {
-      player_->close();  // before the server starts: see stop_server()
-      second_->close();
       const std::string problem = server_->start();
       ASSERT_TRUE(problem.empty()) << problem;
     }
-    for (pw::test::JackPlayer* player : {player_.get(), second_.get()}) {
-      if (player->is_open() && !player->shut_down()) continue;
-      const std::string problem = player->open();
+    for (pw::test::JackPlayerProcess* player : {player_.get(), second_.get()}) {
+      if (player->running()) continue;
+      const std::string problem = player->start();
       ASSERT_TRUE(problem.empty()) << problem;
     }
   }
 
   static std::string server_log() { return server_->log_tail(); }
 
-  // Stops the server and closes the players' clients at once: libjack keeps per-process state while any
-  // client of a dead server stays open, and clients opened after a restart would then find it stale.
+  // The server goes away; the players end with it.
   static void stop_server() {
     server_->stop();
-    player_->close();
-    second_->close();
+    player_->stop();
+    second_->stop();
   }
 
+  static inline std::string suite_problem_;
   static inline std::filesystem::path home_;
   static inline std::filesystem::path marker_;
   static inline std::optional<std::string> old_home_;
   static inline double high_rms_ = 0.0;
   static inline std::unique_ptr<pw::test::JackServer> server_;
-  static inline std::unique_ptr<pw::test::JackPlayer> player_;
-  static inline std::unique_ptr<pw::test::JackPlayer> second_;
+  static inline std::unique_ptr<pw::test::JackPlayerProcess> player_;
+  static inline std::unique_ptr<pw::test::JackPlayerProcess> second_;
 };
 
 TEST_F(DeviceSourceTest, CapturesTheChosenChannelOrTheMeanOfAllChannels) {
@@ -365,7 +375,7 @@ TEST_F(DeviceSourceTest, TellsWhenJackGoesAwayAndComesBackAndStopsPromptlyMeanwh
   {
     const std::string problem = server_->start();
     ASSERT_TRUE(problem.empty()) << problem;
-    const std::string player_problem = player_->open();
+    const std::string player_problem = player_->start();
     ASSERT_TRUE(player_problem.empty()) << player_problem;
   }
   const auto back = listener.wait_back(1, 15s);

@@ -29,3 +29,4 @@ set_tests_properties(daemon.jack_end_to_end PROPERTIES LABELS daemon TIMEOUT 120
 add_executable(pitchwire_server_client_tests ${CMAKE_CURRENT_LIST_DIR}/server_client_test.cpp)
 target_link_libraries(pitchwire_server_client_tests PRIVATE pitchwire::server pitchwire_options GTest::gtest_main)
 gtest_discover_tests(pitchwire_server_client_tests DISCOVERY_TIMEOUT 60 PROPERTIES LABELS daemon)
+include(${CMAKE_CURRENT_LIST_DIR}/protocol_live.cmake)
