@@ -8,6 +8,12 @@
 // machine) when it is stopped while clients are attached; starting and stopping it again without clients
 // under the same name releases the entry, and a test suite should end that way.
 //
+// JackTestLock serialises the JACK parts of test processes of one user: jackd2 names a client's
+// notification socket after the client alone (/dev/shm/jack_<client>_<uid>_0), not after its server, so
+// clients of the same name on two servers of one user clash (one removes the other's socket), and RtAudio
+// always calls its probing clients RtApiJackCount and RtApiJackInfo. Any test program that runs JACK
+// clients should hold it while it does (it is released when the process ends, however it ends).
+//
 // JackPlayer is a JACK client (the JACK C API; link libjack) with output ports out_1, out_2, ... that loop
 // signals made at the server's rate. Tests run each player in a process of its own (JackPlayerProcess),
 // as real JACK clients are: libjack 1.9.21 deadlocks when clients of a dead server are closed from two
@@ -21,10 +27,12 @@
 // shutdown callback only sets an atomic flag.
 #pragma once
 
+#include <dirent.h>
 #include <fcntl.h>
 #include <jack/jack.h>
 #include <signal.h>
 #include <spawn.h>
+#include <sys/file.h>
 #include <sys/prctl.h>
 #include <sys/types.h>
 #include <sys/wait.h>
@@ -153,6 +161,54 @@ inline std::string file_tail(const std::string& path, std::size_t max_chars = 15
   text << in.rdbuf();
   const std::string all = text.str();
   return all.size() > max_chars ? all.substr(all.size() - max_chars) : all;
+}
+
+// See the top of this file. Waits up to `timeout` for the lock; ok() says whether it was taken.
+class JackTestLock {
+ public:
+  explicit JackTestLock(std::chrono::seconds timeout = std::chrono::seconds(300)) {
+    const std::string path = "/tmp/pitchwire-jack-tests-" + std::to_string(::getuid()) + ".lock";
+    fd_ = ::open(path.c_str(), O_RDWR | O_CREAT | O_CLOEXEC, 0600);
+    if (fd_ < 0) return;
+    const auto deadline = std::chrono::steady_clock::now() + timeout;
+    while (::flock(fd_, LOCK_EX | LOCK_NB) != 0) {
+      if (std::chrono::steady_clock::now() >= deadline) {
+        ::close(fd_);
+        fd_ = -1;
+        return;
+      }
+      std::this_thread::sleep_for(std::chrono::milliseconds(50));
+    }
+    locked_ = true;
+  }
+  ~JackTestLock() {
+    if (fd_ >= 0) ::close(fd_);
+  }
+  JackTestLock(const JackTestLock&) = delete;
+  JackTestLock& operator=(const JackTestLock&) = delete;
+  [[nodiscard]] bool ok() const { return locked_; }
+
+ private:
+  int fd_ = -1;
+  bool locked_ = false;
+};
+
+// Removes what a jackd of this name stopped with clients attached leaves in /dev/shm: the semaphores of
+// its clients (jack_sem.<uid>_<server>_<client>) and its socket (jack_<server>_<uid>_0). Call it only
+// once that server has ended.
+inline void remove_jack_leftovers(const std::string& server_name) {
+  const std::string uid = std::to_string(::getuid());
+  const std::string semaphores = "jack_sem." + uid + "_" + server_name + "_";
+  const std::string socket = "jack_" + server_name + "_" + uid + "_";
+  DIR* dir = ::opendir("/dev/shm");
+  if (dir == nullptr) return;
+  std::vector<std::string> doomed;
+  while (const dirent* entry = ::readdir(dir)) {
+    const std::string name = entry->d_name;
+    if (name.rfind(semaphores, 0) == 0 || name.rfind(socket, 0) == 0) doomed.push_back("/dev/shm/" + name);
+  }
+  ::closedir(dir);
+  for (const std::string& path : doomed) ::unlink(path.c_str());
 }
 
 class JackServer {

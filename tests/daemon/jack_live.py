@@ -18,6 +18,7 @@ time.monotonic_ns() when the WebSocket read completes.
 """
 import argparse
 import asyncio
+import fcntl
 import json
 import math
 import os
@@ -90,7 +91,24 @@ def jack_ports(env):
     return r.stdout.split() if r.returncode == 0 else []
 
 
+def take_jack_lock(timeout=120):
+    """Waits for the lock that the JACK tests share (tests/daemon/jack_fixture.h): libjack names a client's
+    socket after the client only, so two JACK servers with clients at once on one machine clash. Held until
+    this process exits."""
+    fd = os.open(f"/tmp/pitchwire-jack-tests-{os.getuid()}.lock", os.O_RDWR | os.O_CREAT, 0o600)
+    deadline = time.monotonic() + timeout
+    while True:
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            return fd
+        except BlockingIOError:
+            if time.monotonic() > deadline:
+                raise RuntimeError("another JACK test held the lock for more than 120 s")
+            time.sleep(0.1)
+
+
 def start_all(procs, pitchwired, player, player_args):
+    take_jack_lock()
     jackd = shutil.which("jackd")
     if not jackd:
         raise RuntimeError("jackd not found: install Debian's jackd2")

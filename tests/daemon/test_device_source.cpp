@@ -176,7 +176,9 @@ std::string thrown_message(const std::function<void()>& action) {
 class DeviceSourceTest : public ::testing::Test {
  protected:
   static void SetUpTestSuite() {
-    pw::test::use_private_jack_server();
+    lock_ = std::make_unique<pw::test::JackTestLock>();
+    if (!lock_->ok()) suite_problem_ = "another test process held the JACK test lock for 5 minutes";
+    server_name_ = pw::test::use_private_jack_server();
     namespace fs = std::filesystem;
     home_ = fs::temp_directory_path() / ("pitchwire-test-home-" + std::to_string(::getpid()));
     fs::create_directories(home_);
@@ -214,13 +216,15 @@ class DeviceSourceTest : public ::testing::Test {
     // releases the entry.
     if (!server_->started()) (void)server_->start();
     server_.reset();
+    pw::test::remove_jack_leftovers(server_name_);
+    lock_.reset();
     if (old_home_) {
       ::setenv("HOME", old_home_->c_str(), 1);
     } else {
       ::unsetenv("HOME");
     }
     std::error_code ignored;
-    if (!std::getenv("PITCHWIRE_TEST_KEEP")) std::filesystem::remove_all(home_, ignored);
+    std::filesystem::remove_all(home_, ignored);
   }
 
   // Every test starts with the server and both players running (a test may have stopped them).
@@ -246,6 +250,8 @@ class DeviceSourceTest : public ::testing::Test {
     second_->stop();
   }
 
+  static inline std::unique_ptr<pw::test::JackTestLock> lock_;
+  static inline std::string server_name_;
   static inline std::string suite_problem_;
   static inline std::filesystem::path home_;
   static inline std::filesystem::path marker_;
