@@ -54,7 +54,8 @@ class SourceError : public std::runtime_error {
   using std::runtime_error::runtime_error;
 };
 
-// Told when a source loses its device and when it comes back (from the source's monitor thread).
+// Told when a source loses its device and when it comes back (from the source's monitor thread). The
+// callbacks must return quickly and must not call the source's stop(), which joins that thread.
 class SourceListener {
  public:
   virtual ~SourceListener() = default;
@@ -102,7 +103,8 @@ std::unique_ptr<AudioSource> make_file_source(const std::string& path, const Sou
 // the input devices found.
 std::unique_ptr<AudioSource> make_device_source(const std::string& name, const SourceOptions& options);
 
-// One line per input device ("NAME (N ch, default rate R Hz)[, default]"), for --list-devices. An empty
+// One line per input device ("API/NAME (N ch, default rate R Hz)[, default]", where API/NAME can be given
+// back as device:API/NAME), for --list-devices. An empty
 // vector when there is none. Never throws: a failing backend is reported as a line of its own.
 std::vector<std::string> list_input_devices();
 
