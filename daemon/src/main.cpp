@@ -43,8 +43,21 @@ constexpr std::size_t kLogFiles = 5;
 // The ring holds ring_s seconds at the highest rate any source may deliver.
 constexpr double kMaxSourceRateHz = 96000.0;
 
-// Creates `dir` (and parents) and makes it private (0700): it holds tokens and logs.
-void make_private_dir(const fs::path& dir) {
+// Creates `dir` (and parents) when it does not exist, private (0700): it holds tokens and logs. An
+// existing folder is left as it is (it may be /tmp or a folder the user chose and shares), but one
+// that others may read gets a warning when it holds tokens.
+void make_private_dir(const fs::path& dir, bool warn_if_open = false) {
+  if (dir.empty()) return;  // a relative file name: the working directory
+  std::error_code ec;
+  if (fs::is_directory(dir, ec)) {
+    if (warn_if_open) {
+      const auto perms = fs::status(dir, ec).permissions();
+      if ((perms & (fs::perms::group_all | fs::perms::others_all)) != fs::perms::none) {
+        spdlog::warn("{}: others may list this folder; the token files in it are 0600", dir.string());
+      }
+    }
+    return;
+  }
   fs::create_directories(dir);
   if (::chmod(dir.c_str(), 0700) != 0) {
     throw std::runtime_error(dir.string() + ": cannot make private: " + std::strerror(errno));
@@ -156,7 +169,7 @@ int run(const pw::DaemonConfig& config) {
   spdlog::info("pitchwired {} starting; settings:\n{}", PITCHWIRE_VERSION, pw::to_json_text(config));
 
   const fs::path token_dir = config.token_dir.empty() ? pw::default_state_dir() : config.token_dir;
-  make_private_dir(token_dir);
+  make_private_dir(token_dir, true);
   const std::string supervisor_token = load_or_create_token(token_dir / "supervisor.token");
   const std::string lab_token = load_or_create_token(token_dir / "lab.token");
 
@@ -199,6 +212,19 @@ int run(const pw::DaemonConfig& config) {
   options.audio_clock = [&pipeline] { return pipeline ? pipeline->audio_time_s() : 0.0; };
   pw::Server server(options);
   SourceRelay relay(server);
+
+  // Whatever happens from here on (a port in use throws from server.start()), stop in the order that
+  // keeps every thread's partners alive: audio, then analysis, then network.
+  struct StopInOrder {
+    pw::AudioSource& source;
+    std::unique_ptr<pw::Pipeline>& pipeline;
+    pw::Server& server;
+    ~StopInOrder() {
+      source.stop();
+      if (pipeline) pipeline->stop();
+      server.stop();
+    }
+  } stop_in_order{*source, pipeline, server};
 
   source->start(ring, relay);
   server.set_audio_format({source->sample_rate_hz(), source->channel()});
@@ -246,7 +272,7 @@ int run(const pw::DaemonConfig& config) {
   const auto t0 = std::chrono::steady_clock::now();
   source->stop();
   pipeline->stop();
-  server.stop();
+  server.stop();  // stop_in_order finds all three stopped (each stop() may be called twice)
   spdlog::info("stopped in {} ms", std::chrono::duration_cast<std::chrono::milliseconds>(
                                        std::chrono::steady_clock::now() - t0).count());
   spdlog::shutdown();

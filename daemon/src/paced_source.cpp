@@ -88,6 +88,8 @@ class PacedSource : public AudioSource {
 class DemoSource final : public PacedSource {
  public:
   using PacedSource::PacedSource;
+  // The pacing thread reads voice_: stop it before voice_ goes (~PacedSource would be too late).
+  ~DemoSource() override { stop(); }
   [[nodiscard]] std::string describe() const override { return "demo"; }
   [[nodiscard]] int channel() const override { return 1; }
 
@@ -116,6 +118,8 @@ class DemoSource final : public PacedSource {
 class FileSource final : public PacedSource {
  public:
   FileSource(std::string path, const SourceOptions& options) : PacedSource(options), path_(std::move(path)) {}
+  // The pacing thread reads reader_: stop it before reader_ goes (~PacedSource would be too late).
+  ~FileSource() override { stop(); }
   [[nodiscard]] std::string describe() const override { return "file:" + path_; }
   [[nodiscard]] int channel() const override { return options_.channel; }
 

@@ -19,6 +19,7 @@
 #include <atomic>
 #include <chrono>
 #include <deque>
+#include <future>
 #include <mutex>
 #include <optional>
 #include <thread>
@@ -59,6 +60,7 @@ constexpr auto kCloseGrace = std::chrono::milliseconds(500);
 // A client that keeps sending after this many refused requests in a row is closed (1008).
 constexpr int kMaxRefusedInARow = 100;
 constexpr std::size_t kMaxBands = 16;
+constexpr std::chrono::milliseconds kAcceptRetry{200};
 constexpr std::size_t kOversizeFactor = 4;
 // Kernel send buffer per WebSocket (Linux doubles it): about 1 s of frames at full rate with every field.
 constexpr int kSocketSendBufferBytes = 32 * 1024;
@@ -181,6 +183,7 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
   ServerOptions options;
   net::io_context ioc;
   tcp::acceptor acceptor;
+  net::steady_timer accept_timer{ioc};
   std::thread thread;  // the network thread
   std::optional<net::executor_work_guard<net::io_context::executor_type>> work;
   int bound_port = 0;
@@ -265,7 +268,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     });
   }
 
-  // ---- called through post() on this session's strand ----
+  // ---- called by the fan-out, on the network thread ----
 
   void deliver_frame(const std::shared_ptr<const FrameBatch>& batch) {
     if (!subscribed_ || closing_) return;
@@ -290,6 +293,14 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
   void deliver(const std::shared_ptr<const SharedMessage>& message) {
     if (closing_) return;
     push_reply(message->encoded.type, message, message->encoded.body);
+  }
+
+  // Shuts the socket at once (the server is gone; no closing handshake). Control thread, after the
+  // network thread has ended.
+  void shut() {
+    beast::error_code ignored;
+    beast::get_lowest_layer(ws_).close(ignored);
+    close_timer_.cancel();
   }
 
   // Closes with `code` and `reason`. With drain, what is queued is sent first (a daemon that stops or
@@ -390,6 +401,15 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     decode_options.reference_hz = server_->options.hello.reference_hz;
     decode_options.f0_min_hz = server_->options.hello.f0_min_hz;
     decode_options.f0_max_hz = server_->options.hello.f0_max_hz;
+    // Every message costs a token before it is parsed: malformed ones must not be a way around the
+    // limit (parsing is the expensive part, on the thread that also serves everyone's frames).
+    if (!take_request_token()) {
+      refuse({ErrorCode::kRateLimited,
+              fmt::format("too many requests: at most {:g} per second, bursts of {:g}",
+                          server_->options.requests_per_s, server_->options.request_burst),
+              ""});
+      return;
+    }
     protocol::Decoded decoded = protocol::decode_request(text, decode_options);
     if (auto* error = std::get_if<protocol::Error>(&decoded)) {
       refuse(std::move(*error));
@@ -397,13 +417,6 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     }
     auto& request = std::get<protocol::Request>(decoded);
     const std::string& id = protocol::id_of(request);
-    if (!take_request_token()) {
-      refuse({ErrorCode::kRateLimited,
-              fmt::format("too many requests: at most {:g} per second, bursts of {:g}",
-                          server_->options.requests_per_s, server_->options.request_burst),
-              id});
-      return;
-    }
     const protocol::ClientType type = protocol::type_of(request);
     const bool needs_supervisor = type == protocol::ClientType::kSetBand || type == protocol::ClientType::kClearBand ||
                                   type == protocol::ClientType::kStartExercise ||
@@ -904,7 +917,14 @@ void Server::Impl::do_accept() {
       socket.set_option(tcp::no_delay(true), ignored);  // frames are small and late ones are useless
       std::make_shared<HttpSession>(std::move(socket), self)->run();
     } else if (ec != net::error::operation_aborted) {
-      spdlog::warn("accept failed: {}", ec.message());
+      // Out of descriptors (EMFILE) and the like: the pending connection stays pending, so accepting again
+      // at once would spin and flood the log. Wait a little; say it once per pause.
+      spdlog::warn("accept failed: {}; trying again in {} ms", ec.message(), kAcceptRetry.count());
+      self->accept_timer.expires_after(kAcceptRetry);
+      self->accept_timer.async_wait([self](beast::error_code e) {
+        if (!e && !self->stopping.load()) self->do_accept();
+      });
+      return;
     }
     self->do_accept();
   });
@@ -988,22 +1008,41 @@ void Server::start() {
 void Server::stop() noexcept {
   if (!impl_ || impl_->stopping.exchange(true)) return;
   try {
-    net::post(impl_->ioc, [impl = impl_] {
+    std::promise<void> closing;
+    auto closed = closing.get_future();
+    net::post(impl_->ioc, [impl = impl_, &closing] {
       beast::error_code ignored;
       impl->acceptor.close(ignored);
+      impl->accept_timer.cancel();
       for (const auto& s : impl->snapshot()) {
         s->close(websocket::close_code::going_away, "pitchwired is stopping", true);
       }
       impl->fan_out_scratch.clear();
+      closing.set_value();
     });
-    // Give the closing handshakes a moment (each connection also shuts its socket after kCloseGrace).
+    // The close job first (it runs at once unless the network thread is stuck), then the closing
+    // handshakes (each connection also shuts its socket after kCloseGrace).
     const auto deadline = Clock::now() + kCloseGrace + std::chrono::milliseconds(200);
+    const bool close_ran = closed.wait_until(deadline) == std::future_status::ready;
     while (impl_->session_count.load() > 0 && Clock::now() < deadline) {
       std::this_thread::sleep_for(std::chrono::milliseconds(10));
     }
     impl_->work.reset();
     impl_->ioc.stop();
     if (impl_->thread.joinable()) impl_->thread.join();
+    // The network thread is gone: this thread may touch the server's state now. Close what is left,
+    // then run the handlers that are still queued (their operations complete as aborted) so that they,
+    // and the references to the server they hold, are freed.
+    beast::error_code ignored;
+    impl_->acceptor.close(ignored);
+    impl_->accept_timer.cancel();
+    for (const auto& s : impl_->sessions) s->shut();
+    impl_->sessions.clear();
+    impl_->session_count.store(0);
+    impl_->ioc.restart();
+    for (int round = 0; round < 100 && impl_->ioc.poll() > 0; ++round) {
+    }
+    if (!close_ran) spdlog::warn("the network thread did not answer the stop in time");
   } catch (const std::exception& e) {
     spdlog::error("while stopping the server: {}", e.what());
   }
