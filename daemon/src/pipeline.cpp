@@ -104,32 +104,31 @@ void Pipeline::run() {
   pthread_setname_np(pthread_self(), "pw-analysis");
   Forwarder forwarder(listener_, options_, frames_);
   std::vector<float> chunk(kReadChunk);
-  // From zero: samples lost before this thread started (the source starts first) count too.
-  std::int64_t lost_seen = 0;
+  // Samples the ring could not take are analysed as silence where they were lost, so that frame times
+  // stay on the capture clock; subscribers are told how many were lost.
+  auto insert_silence = [&](std::int64_t missing) {
+    listener_.on_event(protocol::overflow_event(audio_time_s(), missing));
+    std::fill(chunk.begin(), chunk.end(), 0.0f);
+    for (std::int64_t left = missing; left > 0;) {
+      const auto k = static_cast<std::size_t>(std::min<std::int64_t>(left, static_cast<std::int64_t>(chunk.size())));
+      tracker_->process(std::span<const float>(chunk.data(), k), forwarder);
+      samples_.fetch_add(static_cast<std::int64_t>(k), std::memory_order_relaxed);
+      left -= static_cast<std::int64_t>(k);
+    }
+  };
   std::int64_t xruns_seen = 0;
   while (!stop_requested_.load(std::memory_order_relaxed)) {
     const std::size_t n = ring_.read(chunk.data(), chunk.size());
     if (n > 0) {
       tracker_->process(std::span<const float>(chunk.data(), n), forwarder);
       samples_.fetch_add(static_cast<std::int64_t>(n), std::memory_order_relaxed);
+    }
+    // A loss at this point of the stream (read() stops there); losses before this thread started count.
+    if (const std::int64_t missing = ring_.take_loss(); missing > 0) {
+      insert_silence(missing);
       continue;
     }
-    // The ring is empty: tell about losses, then wait for the audio thread.
-    if (const std::int64_t lost = ring_.lost(); lost != lost_seen) {
-      // Samples the ring could not take are analysed as silence, so that frame times stay on the
-      // capture clock; subscribers are told how many were lost.
-      const std::int64_t missing = lost - lost_seen;
-      lost_seen = lost;
-      listener_.on_event(protocol::overflow_event(audio_time_s(), missing));
-      std::fill(chunk.begin(), chunk.end(), 0.0f);
-      for (std::int64_t left = missing; left > 0;) {
-        const auto k = static_cast<std::size_t>(std::min<std::int64_t>(left, static_cast<std::int64_t>(chunk.size())));
-        tracker_->process(std::span<const float>(chunk.data(), k), forwarder);
-        samples_.fetch_add(static_cast<std::int64_t>(k), std::memory_order_relaxed);
-        left -= static_cast<std::int64_t>(k);
-      }
-      continue;
-    }
+    if (n > 0) continue;
     if (const std::int64_t xruns = source_.xruns(); xruns != xruns_seen) {
       xruns_seen = xruns;
       // The driver lost input before it reached us: the count of samples is unknown.

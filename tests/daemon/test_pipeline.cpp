@@ -209,3 +209,29 @@ TEST(Sources, TheDemoLoopsAtItsOwnRate) {
 
 }  // namespace
 }  // namespace pitchwire::daemon
+
+namespace pitchwire::daemon {
+namespace {
+
+// A loss is placed where it happened: the reader gets the samples before it, then the count, then the
+// samples after it (the capture clock is kept by putting silence of that length in between).
+TEST(SampleRing, ALossIsPlacedWhereItHappened) {
+  SampleRing ring(1000);
+  std::vector<float> a(1000, 1.0f), b(500, 2.0f), c(300, 3.0f);
+  ring.write(a.data(), a.size());  // fills the ring
+  ring.write(b.data(), b.size());  // all lost, after sample 1000
+  std::vector<float> out(2000);
+  ASSERT_EQ(ring.read(out.data(), 600), 600u);
+  EXPECT_EQ(ring.take_loss(), 0);
+  ring.write(c.data(), c.size());  // fits: the loss's record is complete
+  EXPECT_EQ(ring.read(out.data(), out.size()), 400u) << "stops at the loss";
+  for (std::size_t i = 0; i < 400; ++i) ASSERT_EQ(out[i], 1.0f);
+  EXPECT_EQ(ring.take_loss(), 500);
+  EXPECT_EQ(ring.take_loss(), 0);
+  ASSERT_EQ(ring.read(out.data(), out.size()), 300u);
+  for (std::size_t i = 0; i < 300; ++i) ASSERT_EQ(out[i], 3.0f);
+  EXPECT_EQ(ring.lost(), 500);
+}
+
+}  // namespace
+}  // namespace pitchwire::daemon

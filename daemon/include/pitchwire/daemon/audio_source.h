@@ -31,19 +31,37 @@ class SampleRing {
  public:
   explicit SampleRing(std::size_t capacity_samples);
 
-  // Audio thread. Copies what fits; counts the rest as lost. Never blocks, never allocates.
+  // Audio thread. Copies what fits; counts the rest as lost and records where in the stream they were
+  // lost. Never blocks, never allocates.
   void write(const float* samples, std::size_t count) noexcept;
 
-  // Analysis thread. Copies up to max_count samples out; returns how many.
+  // Analysis thread. Copies up to max_count samples out; returns how many. It never reads past the place
+  // of a loss: there, take_loss() says how many samples are missing, so that the reader can put silence
+  // of that length in their place and keep the stream on the capture clock.
   [[nodiscard]] std::size_t read(float* out, std::size_t max_count) noexcept;
+
+  // Analysis thread. The number of samples lost at the current read position (0 when none), consumed.
+  // Losses the ring could not place (more than kLossRecords lossy writes waiting) are returned at the
+  // next call, a little early; the sum of all returns equals lost().
+  [[nodiscard]] std::int64_t take_loss() noexcept;
 
   [[nodiscard]] std::size_t capacity() const noexcept { return capacity_; }
   [[nodiscard]] std::int64_t written() const noexcept { return written_.load(std::memory_order_relaxed); }
   [[nodiscard]] std::int64_t lost() const noexcept { return lost_.load(std::memory_order_relaxed); }
 
  private:
+  struct Loss {
+    std::int64_t position = 0;  // samples accepted before the loss
+    std::int64_t count = 0;
+  };
+  static constexpr std::size_t kLossRecords = 64;
+
   boost::lockfree::spsc_queue<float> queue_;
+  boost::lockfree::spsc_queue<Loss, boost::lockfree::capacity<kLossRecords>> losses_;
   std::size_t capacity_;
+  std::int64_t accepted_ = 0;   // audio thread: samples accepted so far
+  std::int64_t consumed_ = 0;   // analysis thread: samples read so far
+  std::atomic<std::int64_t> unplaced_{0};  // lost samples whose record did not fit in losses_
   std::atomic<std::int64_t> written_{0};  // samples accepted into the ring (the audio heartbeat)
   std::atomic<std::int64_t> lost_{0};     // samples dropped because the ring was full
 };
