@@ -125,7 +125,9 @@ void set_up_logging(const pw::DaemonConfig& config) {
   }
   auto logger = std::make_shared<spdlog::logger>("pitchwired", sinks.begin(), sinks.end());
   logger->set_level(spdlog::level::from_str(config.log_level));
-  logger->flush_on(spdlog::level::warn);
+  // Errors reach the file at once; the rest within a second (flush_every). Not on warn: overflow events
+  // are logged as warnings on the analysis thread, which must not wait for the disk.
+  logger->flush_on(spdlog::level::err);
   spdlog::set_default_logger(logger);
   spdlog::flush_every(std::chrono::seconds(1));
   if (!file_problem.empty()) spdlog::warn("logging to the console only: {}", file_problem);

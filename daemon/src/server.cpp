@@ -212,7 +212,9 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
 
   void fan_out_frame(const std::shared_ptr<const FrameBatch>& batch);
   void fan_out_settled(const std::shared_ptr<const SettledBatch>& batch);
-  void broadcast(const protocol::Encoded& message);
+  void broadcast(const protocol::Encoded& message);  // network thread
+  void deliver_all(const std::shared_ptr<const SharedMessage>& shared);
+  void post_broadcast(protocol::Encoded message);     // any thread: encoded here, sent by the network thread
   void broadcast_event(const protocol::Event& event) { broadcast(protocol::encode(event)); }
   const std::vector<std::shared_ptr<WsSession>>& snapshot();
   void add_session(const std::shared_ptr<WsSession>& s);
@@ -959,9 +961,17 @@ void Server::Impl::fan_out_settled(const std::shared_ptr<const SettledBatch>& ba
 }
 
 void Server::Impl::broadcast(const protocol::Encoded& message) {
-  auto shared = std::make_shared<const SharedMessage>(SharedMessage{message});
+  deliver_all(std::make_shared<const SharedMessage>(SharedMessage{message}));
+}
+
+void Server::Impl::deliver_all(const std::shared_ptr<const SharedMessage>& shared) {
   for (const auto& s : snapshot()) s->deliver(shared);
   fan_out_scratch.clear();
+}
+
+void Server::Impl::post_broadcast(protocol::Encoded message) {
+  auto shared = std::make_shared<const SharedMessage>(SharedMessage{std::move(message)});
+  net::post(ioc, [self = shared_from_this(), shared = std::move(shared)] { self->deliver_all(shared); });
 }
 
 // ---- Server --------------------------------------------------------------------------------------------
@@ -1080,12 +1090,12 @@ void Server::on_settled(const dsp::SettledFrame& frame) {
 }
 
 void Server::on_stats(const protocol::Stats& stats) {
-  net::post(impl_->ioc, [impl = impl_, message = protocol::encode(stats)] { impl->broadcast(message); });
+  impl_->post_broadcast(protocol::encode(stats));
 }
 
 void Server::on_event(const protocol::Event& event) {
   spdlog::warn("{} at {:.3f} s: {}", protocol::name(event.kind), event.time_s, event.payload.dump());
-  net::post(impl_->ioc, [impl = impl_, message = protocol::encode(event)] { impl->broadcast(message); });
+  impl_->post_broadcast(protocol::encode(event));
 }
 
 void Server::on_end() {
@@ -1094,14 +1104,12 @@ void Server::on_end() {
 
 void Server::on_device_lost(const std::string& device, const std::string& reason) {
   spdlog::error("audio input {} lost: {}", device, reason);
-  net::post(impl_->ioc, [impl = impl_, message = protocol::encode(protocol::device_lost_event(
-                                                  impl_->now_audio(), device, reason))] { impl->broadcast(message); });
+  impl_->post_broadcast(protocol::encode(protocol::device_lost_event(impl_->now_audio(), device, reason)));
 }
 
 void Server::on_device_back(const std::string& device) {
   spdlog::info("audio input {} is back", device);
-  net::post(impl_->ioc, [impl = impl_, message = protocol::encode(protocol::device_back_event(
-                                                  impl_->now_audio(), device))] { impl->broadcast(message); });
+  impl_->post_broadcast(protocol::encode(protocol::device_back_event(impl_->now_audio(), device)));
 }
 
 }  // namespace pitchwire::daemon
