@@ -6,3 +6,10 @@ if(TARGET pitchwire::dsp)
   add_executable(bench_tracker ${CMAKE_CURRENT_LIST_DIR}/bench_tracker.cpp)
   target_link_libraries(bench_tracker PRIVATE pitchwire::dsp pitchwire_options benchmark::benchmark)
 endif()
+
+# step_latency: the estimator's share of the live latency on F0 steps (no sound server, no network).
+# Run: build/bench/step_latency  (the latency through JACK is tests/daemon/jack_live.py latency).
+if(TARGET pitchwire::dsp)
+  add_executable(step_latency ${CMAKE_CURRENT_LIST_DIR}/step_latency.cpp)
+  target_link_libraries(step_latency PRIVATE pitchwire::dsp pitchwire_options)
+endif()

@@ -8,6 +8,7 @@
 #include <cmath>
 #include <cstdint>
 #include <random>
+#include <utility>
 #include <vector>
 #include <functional>
 
@@ -325,6 +326,73 @@ TEST(PitchTracker, SettledValueCarriesTheLiveValue) {
     ASSERT_EQ(out.live[k].f0_hz.has_value(), out.settled[k].live_f0_hz.has_value());
     if (out.live[k].f0_hz) {
       EXPECT_EQ(*out.live[k].f0_hz, *out.settled[k].live_f0_hz);
+    }
+  }
+}
+
+// Records, for every live frame, how much input had been given when it came out.
+struct EmissionClock : FrameSink {
+  std::int64_t fed = 0;
+  std::vector<std::pair<LiveFrame, std::int64_t>> live;
+  void on_live(const LiveFrame& f) override { live.emplace_back(f, fed); }
+  void on_settled(const SettledFrame&) override {}
+};
+
+EmissionClock feed_in_blocks(const std::vector<float>& x, PitchTracker& t, std::size_t block) {
+  EmissionClock c;
+  for (std::size_t pos = 0; pos < x.size(); pos += block) {
+    const std::size_t n = std::min(block, x.size() - pos);
+    c.fed = static_cast<std::int64_t>(pos + n);
+    t.process(std::span<const float>(x.data() + pos, n), c);
+  }
+  return c;
+}
+
+// live_latency_s() is a bound the stream keeps: at 48 kHz in 1 ms blocks, every live frame is out by the
+// end of the block in which the input reached its centre plus live_latency_s(), half the 40 ms window and
+// the resampler's 2.4 ms. A 100 Hz voice (below the short window's lags) takes that long; a 220 Hz voice
+// gets its frames from the short window, 10 ms sooner (docs/estimator.md).
+TEST(PitchTracker, LiveFramesComeOutWithinTheStatedLatency) {
+  const double fs = 48000;
+  TrackerConfig cfg;
+  cfg.sample_rate_hz = fs;
+  for (const double f0 : {100.0, 220.0}) {
+    PitchTracker t(cfg);
+    EXPECT_NEAR(t.live_latency_s(), 0.020 + 0.0024, 0.0002);
+    const auto out = feed_in_blocks(sine(fs, f0, 1.0), t, 48);
+    std::size_t checked = 0;
+    double worst = 0;
+    for (const auto& [frame, fed] : out.live) {
+      if (frame.time_s < 0.1 || !frame.f0_hz) continue;
+      const double after_centre = static_cast<double>(fed) / fs - frame.time_s;
+      worst = std::max(worst, after_centre);
+      ++checked;
+    }
+    ASSERT_GT(checked, 150u) << f0 << " Hz";
+    EXPECT_LE(worst, t.live_latency_s() + 0.001) << f0 << " Hz";
+    if (f0 > 125.0) {
+      EXPECT_LE(worst, t.live_latency_s() - 0.010 + 0.001) << f0 << " Hz";
+    }
+  }
+}
+
+// An F0 step between two clear stretches: every hop still gets exactly one live frame, in order, and the
+// frames after the step read the new F0.
+TEST(PitchTracker, LiveFramesAcrossAnF0StepKeepTheirOrder) {
+  const double fs = 48000;
+  std::vector<float> x = sine(fs, 165, 0.6);
+  const std::vector<float> high = sine(fs, 220, 0.6);
+  x.insert(x.end(), high.begin(), high.end());
+  TrackerConfig cfg;
+  cfg.sample_rate_hz = fs;
+  PitchTracker t(cfg);
+  const auto out = feed_in_blocks(x, t, 256);
+  ASSERT_GT(out.live.size(), 200u);
+  for (std::size_t k = 0; k < out.live.size(); ++k) ASSERT_EQ(out.live[k].first.index, static_cast<std::int64_t>(k));
+  for (const auto& [frame, fed] : out.live) {
+    if (frame.time_s > 0.65 && frame.time_s < 1.1) {
+      ASSERT_TRUE(frame.f0_hz.has_value()) << frame.time_s;
+      EXPECT_NEAR(*frame.f0_hz, 220.0, 220.0 * 0.03) << frame.time_s;
     }
   }
 }

@@ -2,16 +2,17 @@
 //
 // Thread contract: a PitchTracker is used by one thread at a time (the analysis thread in the daemon,
 // the main thread in `pitchwire analyze`). It allocates everything in its constructor; process() and
-// flush() allocate nothing of their own (libsoxr keeps its own buffers) and never block.
+// flush() allocate nothing of their own (libsamplerate keeps its own buffers) and never block.
 //
 // Pipeline per input block (any size, 1..8192 samples or more):
-//   input -> [resample to the analysis rate, libsoxr] -> DC/rumble high-pass -> mains hum canceller
+//   input -> [resample to the analysis rate, libsamplerate] -> DC/rumble high-pass -> mains hum canceller
 //         -> low-pass (analysis band) -> per hop: YIN difference function through an FFT (KissFFT),
 //            candidate periods with probabilities (a distribution over thresholds, as probabilistic YIN),
 //            voicing evidence from the deepest dip through level gates and a speaker model
 //         -> HMM over 25-cent pitch bins plus an unvoiced state, decoded by max-product (Viterbi): the best
 //            path ending at the newest frame gives the live value at once (zero lag; for a clearly periodic
-//            voice at or above 125 Hz already from a short window, 12 ms before the full one), the same path
+//            voice at or above 125 Hz already from a short window, 10 ms before the full one, and so are
+//            brief transitions just before such a frame), the same path
 //            traced back `settle_ms` gives the settled value (fixed-lag Viterbi), averaged with its
 //            neighbours up to 20 ms away.
 // Frames are the same whatever the block sizes (tested).
@@ -90,10 +91,10 @@ class PitchTracker {
 
   [[nodiscard]] const TrackerConfig& config() const;
   [[nodiscard]] double analysis_rate_hz() const;     // rate the estimator runs at after resampling
-  // Input time from a hop's centre to its live frame, at the latest: half the analysis window. Input above
-  // 8 kHz adds the resampler's hold-back (about 7 ms on average with 16, 44.1 and 48 kHz input;
-  // docs/estimator.md). A clearly periodic voice at or above 125 Hz gets its live frame 12 ms sooner
-  // (short window: docs/estimator.md, "early live value").
+  // Input time from a hop's centre to its live frame, at the latest: half the analysis window, plus the
+  // resampler's hold-back for input above 8 kHz (2.4 ms, half its filter; docs/estimator.md). A clearly
+  // periodic voice at or above 125 Hz gets its live frame 10 ms sooner (short window: docs/estimator.md,
+  // "early live value").
   [[nodiscard]] double live_latency_s() const;
   [[nodiscard]] int settle_frames() const;           // settled lag in hops
   [[nodiscard]] std::int64_t nonfinite_samples() const;
