@@ -122,6 +122,7 @@ constexpr Limits kRequestsPerS{1, 1000};
 constexpr Limits kRequestBurst{1, 10000};
 constexpr Limits kStatsInterval{0.1, 60};
 constexpr Limits kStatsWindow{0.5, 600};
+constexpr Limits kBandDwell{0, 5};
 constexpr double kF0RatioMin = 1.5;   // f0_max_hz must exceed this times f0_min_hz (the tracker's rule)
 constexpr double kRingBuffersMin = 2;  // the ring holds at least this many device buffers
 
@@ -197,11 +198,12 @@ InputSpec parse_input_as(const Subject& subject, const std::string& text) {
 // ---- the configuration file ----------------------------------------------------------------------------
 
 // The keys of the file, in the order of DaemonConfig (and of to_json_text and config/pitchwired.jsonc).
-constexpr std::array<std::string_view, 26> kKeys = {
+constexpr std::array<std::string_view, 27> kKeys = {
     "input", "sample_rate_hz", "buffer_frames", "channel", "loop", "ring_s",                      // audio
     "hop_ms", "settle_ms", "f0_min_hz", "f0_max_hz", "hum_cancel", "reference_hz",               // estimator
     "bind", "port", "web_root", "max_clients", "max_message_bytes", "queue_frames",              // server
     "slow_client_s", "requests_per_s", "request_burst", "stats_interval_s", "stats_window_s",
+    "band_dwell_s",
     "log_level", "log_file", "token_dir"};                                                        // files
 
 std::string lower(std::string_view text) {
@@ -314,6 +316,8 @@ class FileReader {
       config.stats_interval_s = number(key, value, kStatsInterval);
     } else if (key == "stats_window_s") {
       config.stats_window_s = number(key, value, kStatsWindow);
+    } else if (key == "band_dwell_s") {
+      config.band_dwell_s = number(key, value, kBandDwell);
     } else if (key == "log_level") {
       config.log_level = text_value(key, value);
       check_log_level(s, config.log_level);
@@ -444,13 +448,14 @@ std::string parse_error_what(const nlohmann::json::parse_error& e) {
 
 // The limits of a numeric key, or nullptr.
 const Limits* limits_of(std::string_view key) {
-  static constexpr std::array<std::pair<std::string_view, const Limits*>, 18> kNumeric = {{
+  static constexpr std::array<std::pair<std::string_view, const Limits*>, 19> kNumeric = {{
       {"sample_rate_hz", &kSampleRate}, {"buffer_frames", &kBufferFrames}, {"channel", &kChannel},
       {"ring_s", &kRingSeconds}, {"hop_ms", &kHopMs}, {"settle_ms", &kSettleMs}, {"f0_min_hz", &kF0Min},
       {"f0_max_hz", &kF0Max}, {"reference_hz", &kReference}, {"port", &kPort}, {"max_clients", &kMaxClients},
       {"max_message_bytes", &kMaxMessageBytes}, {"queue_frames", &kQueueFrames}, {"slow_client_s", &kSlowClient},
       {"requests_per_s", &kRequestsPerS}, {"request_burst", &kRequestBurst},
       {"stats_interval_s", &kStatsInterval}, {"stats_window_s", &kStatsWindow},
+      {"band_dwell_s", &kBandDwell},
   }};
   for (const auto& [name, limits] : kNumeric) {
     if (name == key) return limits;
@@ -667,6 +672,7 @@ void DaemonConfig::validate() const {
   check_number(key("request_burst"), request_burst, kRequestBurst);
   check_number(key("stats_interval_s"), stats_interval_s, kStatsInterval);
   check_number(key("stats_window_s"), stats_window_s, kStatsWindow);
+  check_number(key("band_dwell_s"), band_dwell_s, kBandDwell);
   check_log_level(key("log_level"), log_level);
   check_path(key("web_root"), web_root.string());
   check_path(key("log_file"), log_file.string());
@@ -929,6 +935,7 @@ std::string to_json_text(const DaemonConfig& config) {
   out["request_burst"] = config.request_burst;
   out["stats_interval_s"] = config.stats_interval_s;
   out["stats_window_s"] = config.stats_window_s;
+  out["band_dwell_s"] = config.band_dwell_s;
   out["log_level"] = config.log_level;
   out["log_file"] = config.log_file.string();
   out["token_dir"] = config.token_dir.string();

@@ -209,9 +209,14 @@ int run(const pw::DaemonConfig& config) {
   pipeline_options.tracker.hum_cancel = config.hum_cancel;
   pipeline_options.stats_interval_s = config.stats_interval_s;
   pipeline_options.stats_window_s = config.stats_window_s;
+  pipeline_options.band_dwell_s = config.band_dwell_s;
 
   std::unique_ptr<pw::Pipeline> pipeline;
   options.audio_clock = [&pipeline] { return pipeline ? pipeline->audio_time_s() : 0.0; };
+  // The network thread starts in server.start(), after the pipeline exists.
+  options.on_bands = [&pipeline](std::vector<pitchwire::protocol::Band> bands) {
+    if (pipeline) pipeline->set_bands(std::move(bands));
+  };
   pw::Server server(options);
   SourceRelay relay(server);
 

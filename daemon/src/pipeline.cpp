@@ -7,6 +7,7 @@
 #include <chrono>
 #include <cmath>
 
+#include "pitchwire/dsp/band_tracker.h"
 #include "pitchwire/dsp/range_stats.h"
 
 namespace pitchwire::daemon {
@@ -20,10 +21,27 @@ constexpr std::size_t kReadChunk = 512;
 constexpr auto kPollInterval = std::chrono::milliseconds(1);
 
 // Receives the tracker's frames on the analysis thread, keeps the statistics window and forwards.
+protocol::BandPosition to_protocol(dsp::BandPosition p) {
+  switch (p) {
+    case dsp::BandPosition::below: return protocol::BandPosition::kBelow;
+    case dsp::BandPosition::inside: return protocol::BandPosition::kInside;
+    case dsp::BandPosition::above: return protocol::BandPosition::kAbove;
+    case dsp::BandPosition::unvoiced: return protocol::BandPosition::kUnvoiced;
+  }
+  return protocol::BandPosition::kUnvoiced;
+}
+
+// A target band as the analysis thread follows it.
+struct FollowedBand {
+  protocol::Band band;
+  dsp::BandTracker tracker;
+};
+
 class Forwarder final : public dsp::FrameSink {
  public:
-  Forwarder(PipelineListener& listener, const PipelineOptions& options, std::atomic<std::int64_t>& frames)
-      : listener_(listener), frames_(frames), options_(options) {
+  Forwarder(PipelineListener& listener, const PipelineOptions& options, std::atomic<std::int64_t>& frames,
+            BandSlot& band_slot)
+      : listener_(listener), frames_(frames), options_(options), band_slot_(band_slot) {
     const double hop_s = options.tracker.hop_ms / 1000.0;
     window_.assign(static_cast<std::size_t>(std::ceil(options.stats_window_s / hop_s)), std::nullopt);
     scratch_.reserve(window_.size());
@@ -33,6 +51,14 @@ class Forwarder final : public dsp::FrameSink {
   void on_live(const dsp::LiveFrame& frame) override {
     listener_.on_live(frame);
     frames_.fetch_add(1, std::memory_order_relaxed);
+    refresh_bands();
+    for (FollowedBand& f : bands_) {
+      const dsp::BandPosition raw = dsp::band_position(frame.f0_hz, f.band.low_hz, f.band.high_hz);
+      if (const auto change = f.tracker.update(frame.time_s, raw)) {
+        listener_.on_event(protocol::band_crossing_event(frame.time_s, f.band.name, to_protocol(change->from),
+                                                         to_protocol(change->to), change->since_s));
+      }
+    }
   }
 
   void on_settled(const dsp::SettledFrame& frame) override {
@@ -64,7 +90,44 @@ class Forwarder final : public dsp::FrameSink {
       s.f0_p95_hz = round3(range->p95_hz);
     }
     s.voiced_fraction = round3(s.voiced_fraction);
+    // Time inside each band: voiced frames of the window inside it, over voiced frames (docs/measures.md).
+    for (const FollowedBand& f : bands_) {
+      protocol::BandShare share;
+      share.name = f.band.name;
+      share.state = to_protocol(f.tracker.held());
+      if (!scratch_.empty()) {
+        const auto inside = std::count_if(scratch_.begin(), scratch_.end(), [&](double hz) {
+          return dsp::band_position(static_cast<float>(hz), f.band.low_hz, f.band.high_hz) == dsp::BandPosition::inside;
+        });
+        share.inside_fraction = round3(static_cast<double>(inside) / static_cast<double>(scratch_.size()));
+      }
+      s.bands.push_back(std::move(share));
+    }
     return s;
+  }
+
+  // Takes new bands from the slot when they have changed; a band kept with the same name and limits keeps
+  // its tracker (and so its state).
+  void refresh_bands() {
+    const std::uint64_t version = band_slot_.version.load(std::memory_order_acquire);
+    if (version == bands_version_) return;
+    std::vector<protocol::Band> wanted;
+    {
+      const std::lock_guard<std::mutex> lock(band_slot_.mutex);
+      wanted = band_slot_.bands;
+      bands_version_ = band_slot_.version.load(std::memory_order_relaxed);
+    }
+    std::vector<FollowedBand> next;
+    next.reserve(wanted.size());
+    for (protocol::Band& b : wanted) {
+      auto same = std::find_if(bands_.begin(), bands_.end(), [&](const FollowedBand& f) { return f.band == b; });
+      if (same != bands_.end()) {
+        next.push_back(std::move(*same));
+      } else {
+        next.push_back(FollowedBand{std::move(b), dsp::BandTracker(options_.band_dwell_s, options_.tracker.hop_ms / 1000.0)});
+      }
+    }
+    bands_ = std::move(next);
   }
 
   PipelineListener& listener_;
@@ -74,6 +137,9 @@ class Forwarder final : public dsp::FrameSink {
   std::size_t next_ = 0, filled_ = 0;
   std::vector<double> scratch_;
   std::int64_t interval_frames_ = 1;
+  BandSlot& band_slot_;
+  std::uint64_t bands_version_ = 0;
+  std::vector<FollowedBand> bands_;
 };
 
 }  // namespace
@@ -96,13 +162,19 @@ void Pipeline::stop() noexcept {
   if (thread_.joinable()) thread_.join();
 }
 
+void Pipeline::set_bands(std::vector<protocol::Band> bands) {
+  const std::lock_guard<std::mutex> lock(bands_.mutex);
+  bands_.bands = std::move(bands);
+  bands_.version.fetch_add(1, std::memory_order_release);
+}
+
 double Pipeline::audio_time_s() const {
   return static_cast<double>(samples_.load(std::memory_order_relaxed)) / options_.tracker.sample_rate_hz;
 }
 
 void Pipeline::run() {
   pthread_setname_np(pthread_self(), "pw-analysis");
-  Forwarder forwarder(listener_, options_, frames_);
+  Forwarder forwarder(listener_, options_, frames_, bands_);
   std::vector<float> chunk(kReadChunk);
   // Samples the ring could not take are analysed as silence where they were lost, so that frame times
   // stay on the capture clock; subscribers are told how many were lost.

@@ -478,6 +478,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       bands = server_->bands;
     }
     ack(r.id, protocol::ClientType::kSetBand);
+    if (server_->options.on_bands) server_->options.on_bands(bands);
     server_->broadcast_event(protocol::band_changed_event(server_->now_audio(), r.band.name, bands));
   }
 
@@ -495,6 +496,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       bands = server_->bands;
     }
     ack(r.id, protocol::ClientType::kClearBand);
+    if (server_->options.on_bands) server_->options.on_bands(bands);
     server_->broadcast_event(protocol::band_changed_event(server_->now_audio(), r.name, bands));
   }
 

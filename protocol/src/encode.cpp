@@ -42,6 +42,13 @@ Json band_list(const std::vector<Band>& bands) {
   return list;
 }
 
+Json band_shares(const std::vector<BandShare>& shares) {
+  Json list = Json::array();
+  for (const auto& b : shares)
+    list.push_back(Json{{"name", b.name}, {"inside_fraction", or_null(b.inside_fraction)}, {"state", name(b.state)}});
+  return list;
+}
+
 Json field_list(FieldSet fields) {
   Json list = Json::array();
   for (std::size_t i = 0; i < kFrameFieldNames.size(); ++i) {
@@ -142,7 +149,8 @@ Encoded encode(const Stats& m) {
                                             {"f0_p5_hz", or_null(m.f0_p5_hz)},
                                             {"f0_p50_hz", or_null(m.f0_p50_hz)},
                                             {"f0_p95_hz", or_null(m.f0_p95_hz)},
-                                            {"f0_sd_st", or_null(m.f0_sd_st)}});
+                                            {"f0_sd_st", or_null(m.f0_sd_st)},
+                                            {"bands", band_shares(m.bands)}});
 }
 
 Encoded encode(const Event& m) {

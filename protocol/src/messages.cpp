@@ -77,9 +77,10 @@ Event band_changed_event(double time_s, std::string_view name, const std::vector
   return event(EventKind::kBandChanged, time_s, Json{{"name", name}, {"bands", std::move(list)}});
 }
 
-Event band_crossing_event(double time_s, std::string_view name, BandPosition from, BandPosition to) {
+Event band_crossing_event(double time_s, std::string_view name, BandPosition from, BandPosition to,
+                          double since_s) {
   return event(EventKind::kBandCrossing, time_s,
-               Json{{"name", name}, {"from", protocol::name(from)}, {"to", protocol::name(to)}});
+               Json{{"name", name}, {"from", protocol::name(from)}, {"to", protocol::name(to)}, {"since_s", since_s}});
 }
 
 Event exercise_started_event(double time_s, const Exercise& exercise) {

@@ -783,6 +783,24 @@ async def test_requests(ctx):
         err = await sup.request({"type": "set_band", "id": "b-bad", "name": "bad", **req})
         check(f"set_band with {label} -> {code}", err and err.get("code") == code and err.get("id") == "b-bad",
               ref + " set_band and error codes", short(err))
+    # A band spanning the whole search range: every voiced frame is inside it, so its share of voiced time
+    # is 1 by construction, and the demo voice (speech with pauses) makes its state cross.
+    m0 = len(mon.msgs)
+    ack = await sup.request({"type": "set_band", "id": "b-2", "name": "whole", "low": 50, "high": 1400})
+    check("set_band 50..1400 Hz -> ack", ack and ack.get("type") == "ack", ref + " set_band", short(ack))
+    ev = await mon.wait(lambda m: m.get("type") == "event" and m.get("kind") == "band_crossing"
+                        and m["payload"].get("name") == "whole", 6, m0)
+    check("band_crossing for the new band within 6 s, dated no later than its confirmation",
+          ev and ev["payload"]["from"] in ("below", "inside", "above", "unvoiced")
+          and ev["payload"]["to"] in ("inside", "unvoiced") and ev["payload"]["since_s"] <= ev["time_s"],
+          "docs/protocol.md event band_crossing; docs/measures.md Band state", short(ev))
+    st = await mon.wait(lambda m: m.get("type") == "stats" and any(b.get("name") == "whole" and b.get("inside_fraction")
+                                                                    is not None for b in m.get("bands", [])), 6, m0)
+    whole = next((b for b in (st or {}).get("bands", []) if b.get("name") == "whole"), None)
+    check("stats list the bands in the order set, and the whole range holds every voiced frame (share 1.0)",
+          st and [b["name"] for b in st["bands"]] == ["target", "whole"] and whole["inside_fraction"] == 1.0,
+          "docs/protocol.md stats.bands; by construction", short(st and st.get("bands")))
+    await sup.request({"type": "clear_band", "id": "c-0", "name": "whole"})
     m0 = len(mon.msgs)
     ack = await sup.request({"type": "clear_band", "id": "c-1", "name": "target"})
     ev = await mon.wait(lambda m: m.get("type") == "event" and m.get("kind") == "band_changed", 3, m0)

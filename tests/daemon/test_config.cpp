@@ -156,7 +156,7 @@ TEST(Config, ShippedFileHasEveryKey) {
   // to_json_text and missing here would be a setting nobody is told about.
   const std::set<std::string> written = keys_of(to_json_text(defaults()));
   EXPECT_EQ(keys_of(read_text(shipped_config())), written);
-  EXPECT_EQ(written.size(), 26u);
+  EXPECT_EQ(written.size(), 27u);
 }
 
 TEST(Config, EveryKeyIsReadFromTheFile) {
@@ -185,6 +185,7 @@ TEST(Config, EveryKeyIsReadFromTheFile) {
   changed.request_burst = 10;
   changed.stats_interval_s = 1;
   changed.stats_window_s = 30;
+  changed.band_dwell_s = 0.5;
   changed.log_level = "debug";
   changed.log_file = "/var/tmp/pitchwired.log";
   changed.token_dir = "/var/tmp/tokens";

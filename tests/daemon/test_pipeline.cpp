@@ -1,4 +1,5 @@
 // test_pipeline.cpp: the sample ring, the paced file source and the analysis thread, without the network.
+#include <cmath>
 #include <gtest/gtest.h>
 #include <sndfile.h>
 
@@ -174,6 +175,79 @@ TEST(Pipeline, OverflowIsReportedAndTheClockKeepsTheLostSamples) {
   EXPECT_NEAR(pipeline.audio_time_s(), 5000.0 / 8000.0, 1e-12);
   // Silence is unvoiced.
   for (const auto& f : collector.settled) EXPECT_FALSE(f.f0_hz.has_value());
+}
+
+// Target bands on a voice whose F0 is known by construction: sine tones of 200 Hz (0-1 s), 300 Hz (1-2 s) and
+// 200 Hz (2-3 s) at 8 kHz. Band "target" (180-220 Hz) is entered, left upwards and entered again, each change
+// dated to within four hops of the tone's start; band "low" (100-150 Hz) is above the voice throughout and
+// changes once. The statistics carry the time inside each band over their window and the held state.
+TEST(Pipeline, BandCrossingsAndTimeInsideFollowTheVoice) {
+  ManualSource source;
+  SampleRing ring(3 * 8000 + 100);
+  std::vector<float> x;
+  for (const double f0 : {200.0, 300.0, 200.0}) {
+    for (int i = 0; i < 8000; ++i) x.push_back(static_cast<float>(0.3 * std::sin(2 * 3.14159265358979 * f0 * i / 8000.0)));
+  }
+  ring.write(x.data(), x.size());
+  Collector collector;
+  PipelineOptions options;
+  options.stats_window_s = 0.5;
+  options.stats_interval_s = 0.25;
+  options.band_dwell_s = 0.2;
+  Pipeline pipeline(ring, source, options, collector);
+  pipeline.set_bands({{"target", 180.0, 220.0}, {"low", 100.0, 150.0}});
+  pipeline.start();
+  const auto deadline = std::chrono::steady_clock::now() + 10s;
+  while (pipeline.audio_time_s() < 3.0 && std::chrono::steady_clock::now() < deadline) std::this_thread::sleep_for(1ms);
+  source.finished_.store(true);
+  ASSERT_TRUE(collector.wait_end(10s));
+  pipeline.stop();
+
+  struct Crossing { std::string name, from, to; double since_s, time_s; };
+  std::vector<Crossing> crossings;
+  for (const auto& e : collector.events) {
+    ASSERT_EQ(e.kind, protocol::EventKind::kBandCrossing);
+    crossings.push_back({e.payload.at("name"), e.payload.at("from"), e.payload.at("to"), e.payload.at("since_s"), e.time_s});
+  }
+  std::vector<Crossing> target, low;
+  for (const auto& c : crossings) (c.name == "target" ? target : low).push_back(c);
+  ASSERT_EQ(target.size(), 3u);
+  EXPECT_EQ(target[0].from + ">" + target[0].to, "unvoiced>inside");
+  EXPECT_EQ(target[1].from + ">" + target[1].to, "inside>above");
+  EXPECT_EQ(target[2].from + ">" + target[2].to, "above>inside");
+  // Live frames centred up to 20 ms from a tone change see both tones in their window; the live path
+  // reaches the new tone within four hops of the change.
+  EXPECT_NEAR(target[1].since_s, 1.0, 0.021);
+  EXPECT_NEAR(target[2].since_s, 2.0, 0.021);
+  for (const auto& c : target) {
+    EXPECT_GE(c.time_s - c.since_s, 0.75 * 0.2 - 0.006);  // confirmed after three quarters of the dwell
+    EXPECT_LE(c.time_s - c.since_s, 0.2);
+  }
+  ASSERT_EQ(low.size(), 1u);
+  EXPECT_EQ(low[0].from + ">" + low[0].to, "unvoiced>above");
+
+  // Statistics: a window wholly in the 200 Hz tone is all inside, one wholly in the 300 Hz tone none.
+  bool saw_inside = false, saw_above = false;
+  for (const auto& st : collector.stats) {
+    ASSERT_EQ(st.bands.size(), 2u);
+    EXPECT_EQ(st.bands[0].name, "target");
+    EXPECT_EQ(st.bands[1].name, "low");
+    if (st.time_s > 0.7 && st.time_s < 0.95) {
+      ASSERT_TRUE(st.bands[0].inside_fraction.has_value());
+      EXPECT_EQ(*st.bands[0].inside_fraction, 1.0) << st.time_s;
+      EXPECT_EQ(st.bands[0].state, protocol::BandPosition::kInside) << st.time_s;
+      EXPECT_EQ(*st.bands[1].inside_fraction, 0.0) << st.time_s;
+      saw_inside = true;
+    }
+    if (st.time_s > 1.7 && st.time_s < 1.95) {
+      ASSERT_TRUE(st.bands[0].inside_fraction.has_value());
+      EXPECT_EQ(*st.bands[0].inside_fraction, 0.0) << st.time_s;
+      EXPECT_EQ(st.bands[0].state, protocol::BandPosition::kAbove) << st.time_s;
+      saw_above = true;
+    }
+  }
+  EXPECT_TRUE(saw_inside);
+  EXPECT_TRUE(saw_above);
 }
 
 TEST(Sources, AFileThatIsNotThereIsAOneLineErrorNamingIt) {

@@ -106,9 +106,11 @@ int main() {
   settled.f0_hz.reset();
   server(pw::encode_settled(settled));
 
-  pw::Stats stats{30.0, 10.0, 0.0, std::nullopt, std::nullopt, std::nullopt, std::nullopt};
+  pw::Stats stats{30.0, 10.0, 0.0, std::nullopt, std::nullopt, std::nullopt, std::nullopt, {}};
   server(pw::encode(stats));
-  stats = pw::Stats{40.0, 10.0, 0.62, 151.0, 182.5, 240.0, 1.8};
+  stats = pw::Stats{40.0, 10.0, 0.62, 151.0, 182.5, 240.0, 1.8, {}};
+  server(pw::encode(stats));
+  stats.bands = {{"target", 0.84, pw::BandPosition::kInside}, {"ceiling", std::nullopt, pw::BandPosition::kUnvoiced}};
   server(pw::encode(stats));
 
   const pw::Exercise exercise{"sustained_a", "", 20.0};
@@ -117,7 +119,7 @@ int main() {
   server(pw::encode(pw::device_back_event(9.0, "USB Audio")));
   server(pw::encode(pw::band_changed_event(10.0, "target", {{"target", 165.0, 220.0}})));
   server(pw::encode(pw::band_changed_event(11.0, "target", {})));
-  server(pw::encode(pw::band_crossing_event(12.0, "target", pw::BandPosition::kUnvoiced, pw::BandPosition::kAbove)));
+  server(pw::encode(pw::band_crossing_event(12.0, "target", pw::BandPosition::kUnvoiced, pw::BandPosition::kAbove, 11.85)));
   server(pw::encode(pw::exercise_started_event(20.0, exercise)));
   server(pw::encode(pw::exercise_ended_event(35.0, exercise, Json{{"voiced_s", 11.2}})));
   server(pw::encode(pw::dropped_frames_event(36.0, 17)));

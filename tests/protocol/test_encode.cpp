@@ -124,10 +124,10 @@ TEST(ProtocolEncode, OtherMessagesReadBack) {
   EXPECT_EQ(s["f0_p50_hz"], 180.0);
   EXPECT_TRUE(s["f0_p5_hz"].is_null());
 
-  const Json ev = read_back(encode(band_crossing_event(1.5, "target", BandPosition::kBelow, BandPosition::kInside)), 8);
+  const Json ev = read_back(encode(band_crossing_event(1.5, "target", BandPosition::kBelow, BandPosition::kInside, 1.25)), 8);
   EXPECT_EQ(ev["kind"], "band_crossing");
   EXPECT_EQ(ev["time_s"], 1.5);
-  EXPECT_EQ(ev["payload"], Json({{"name", "target"}, {"from", "below"}, {"to", "inside"}}));
+  EXPECT_EQ(ev["payload"], Json({{"name", "target"}, {"from", "below"}, {"to", "inside"}, {"since_s", 1.25}}));
 
   const Json err = read_back(encode(Error{ErrorCode::kForbidden, "set_band: needs the supervisor role", "b1"}), 9);
   EXPECT_EQ(err["code"], "forbidden");

@@ -64,6 +64,7 @@ struct DaemonConfig {
   double request_burst = 40.0;        // "request_burst": 1..10000
   double stats_interval_s = 0.5;      // "stats_interval_s": 0.1..60
   double stats_window_s = 5.0;        // "stats_window_s": 0.5..600
+  double band_dwell_s = 0.25;         // "band_dwell_s": 0..5, band state hysteresis (docs/measures.md)
 
   // logging and files
   std::string log_level = "info";     // "log_level": trace, debug, info, warn, error, off

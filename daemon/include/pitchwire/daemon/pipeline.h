@@ -1,15 +1,18 @@
 // pipeline.h: the analysis thread. It drains the sample ring, runs the pitch tracker (the same
 // dsp::PitchTracker that `pitchwire analyze` runs), keeps the sliding-window statistics and hands every
-// frame, statistic and audio event to a listener (the server's publisher).
+// frame, statistic and audio event to a listener (the server's publisher). It also follows the voice
+// against the target bands (dsp::BandTracker on live frames, band_crossing events; time inside each band
+// on settled frames, in the statistics).
 //
 // Thread contract: start()/stop() on the control thread. The listener is called on the analysis thread
 // only, synchronously and in order; it must not block (the server's publisher encodes and posts).
-// audio_time_s() and the counters may be read from any thread.
+// audio_time_s(), the counters and set_bands() may be used from any thread.
 #pragma once
 
 #include <atomic>
 #include <cstdint>
 #include <memory>
+#include <mutex>
 #include <thread>
 #include <vector>
 
@@ -25,7 +28,7 @@ class PipelineListener {
   virtual void on_live(const dsp::LiveFrame& frame) = 0;
   virtual void on_settled(const dsp::SettledFrame& frame) = 0;
   virtual void on_stats(const protocol::Stats& stats) = 0;
-  virtual void on_event(const protocol::Event& event) = 0;  // overflow
+  virtual void on_event(const protocol::Event& event) = 0;  // overflow, band_crossing
   virtual void on_end() = 0;  // the source has finished and every frame has been delivered
 };
 
@@ -33,6 +36,14 @@ struct PipelineOptions {
   dsp::TrackerConfig tracker;     // sample_rate_hz is taken from the source at start()
   double stats_interval_s = 0.5;  // a `stats` every this many seconds of audio
   double stats_window_s = 5.0;    // over the settled frames of this many seconds
+  double band_dwell_s = 0.25;     // band state hysteresis (dsp::BandTracker)
+};
+
+// Bands handed over from another thread: the analysis thread copies them when the version moves.
+struct BandSlot {
+  std::mutex mutex;
+  std::vector<protocol::Band> bands;
+  std::atomic<std::uint64_t> version{0};
 };
 
 class Pipeline {
@@ -54,6 +65,10 @@ class Pipeline {
   [[nodiscard]] std::int64_t frames_published() const { return frames_.load(std::memory_order_relaxed); }
   [[nodiscard]] const dsp::TrackerConfig& tracker_config() const { return options_.tracker; }
 
+  // The target bands from now on (limits in Hz, checked by the caller). The analysis thread picks them up
+  // at its next frame; a band kept with the same name and limits keeps its state.
+  void set_bands(std::vector<protocol::Band> bands);
+
  private:
   void run();
 
@@ -66,6 +81,7 @@ class Pipeline {
   std::atomic<bool> stop_requested_{false};
   std::atomic<std::int64_t> samples_{0};
   std::atomic<std::int64_t> frames_{0};
+  BandSlot bands_;
 };
 
 }  // namespace pitchwire::daemon

@@ -42,6 +42,8 @@ struct ServerOptions {
   std::vector<std::string> presets;   // exercise preset names start_exercise accepts
   protocol::Hello hello;              // the greeting's fixed part (versions, audio format, hop, range)
   std::function<double()> audio_clock;  // seconds on the audio clock now (Pipeline::audio_time_s)
+  // Called on the network thread with every band set after a set_band or clear_band (Pipeline::set_bands).
+  std::function<void(std::vector<protocol::Band>)> on_bands;
 };
 
 class Server final : public PipelineListener, public SourceListener {

@@ -213,6 +213,14 @@ struct Hello {
 };
 
 // Periodic statistics over a sliding window. A first set of fields; later work adds more.
+// Time inside one target band over a statistics window, and the band's held state at its end.
+struct BandShare {
+  std::string name;
+  std::optional<double> inside_fraction;  // voiced frames inside / voiced frames; empty with none voiced
+  BandPosition state = BandPosition::kUnvoiced;  // held state (with hysteresis) at the window's end
+  friend bool operator==(const BandShare&, const BandShare&) = default;
+};
+
 struct Stats {
   double time_s = 0.0;    // audio clock at the end of the window
   double window_s = 0.0;
@@ -221,6 +229,7 @@ struct Stats {
   std::optional<double> f0_p50_hz;
   std::optional<double> f0_p95_hz;
   std::optional<double> f0_sd_st;   // SD of F0 in semitones
+  std::vector<BandShare> bands;     // one per active band, in the order they were set
 };
 
 struct Event {
@@ -234,7 +243,9 @@ struct Event {
 [[nodiscard]] Event device_lost_event(double time_s, std::string_view device, std::string_view reason);
 [[nodiscard]] Event device_back_event(double time_s, std::string_view device);
 [[nodiscard]] Event band_changed_event(double time_s, std::string_view name, const std::vector<Band>& bands);
-[[nodiscard]] Event band_crossing_event(double time_s, std::string_view name, BandPosition from, BandPosition to);
+// time_s: when the change was confirmed; since_s: the first frame of the stretch that made it.
+[[nodiscard]] Event band_crossing_event(double time_s, std::string_view name, BandPosition from, BandPosition to,
+                                        double since_s);
 [[nodiscard]] Event exercise_started_event(double time_s, const Exercise& exercise);
 [[nodiscard]] Event exercise_ended_event(double time_s, const Exercise& exercise, Json summary);
 [[nodiscard]] Event marker_event(double time_s, const Mark& mark);
