@@ -27,6 +27,7 @@
 #include "pitchwire/daemon/audio_source.h"
 #include "pitchwire/daemon/config.h"
 #include "pitchwire/daemon/pipeline.h"
+#include "pitchwire/daemon/recorder.h"
 #include "pitchwire/daemon/server.h"
 
 namespace pw = pitchwire::daemon;
@@ -167,6 +168,28 @@ class SourceRelay final : public pw::SourceListener {
   std::atomic<bool> lost_{false};
 };
 
+// The pipeline's listener: every frame, statistic and event goes to the server; settled frames and
+// statistics also go to the session record (events reach it through ServerOptions::on_event_sent).
+class RecordingTee final : public pw::PipelineListener {
+ public:
+  RecordingTee(pw::Server& server, pw::Recorder* recorder) : server_(server), recorder_(recorder) {}
+  void on_live(const pitchwire::dsp::LiveFrame& frame) override { server_.on_live(frame); }
+  void on_settled(const pitchwire::dsp::SettledFrame& frame) override {
+    server_.on_settled(frame);
+    if (recorder_) recorder_->record_settled(frame);
+  }
+  void on_stats(const pitchwire::protocol::Stats& stats) override {
+    server_.on_stats(stats);
+    if (recorder_) recorder_->record_stats(stats);
+  }
+  void on_event(const pitchwire::protocol::Event& event) override { server_.on_event(event); }
+  void on_end() override { server_.on_end(); }
+
+ private:
+  pw::Server& server_;
+  pw::Recorder* recorder_;
+};
+
 int run(const pw::DaemonConfig& config) {
   spdlog::info("pitchwired {} starting; settings:\n{}", PITCHWIRE_VERSION, pw::to_json_text(config));
 
@@ -211,14 +234,42 @@ int run(const pw::DaemonConfig& config) {
   pipeline_options.stats_window_s = config.stats_window_s;
   pipeline_options.band_dwell_s = config.band_dwell_s;
 
+  // The session record (docs/sessions.md): unfinished sessions of an earlier run are closed first.
+  std::unique_ptr<pw::Recorder> recorder;
   std::unique_ptr<pw::Pipeline> pipeline;
+  pw::Server* server_for_problems = nullptr;  // set once the server exists; the recorder starts after
+  if (config.record_sessions) {
+    const fs::path sessions = config.session_dir.empty() ? pw::default_state_dir() / "sessions" : config.session_dir;
+    for (const fs::path& dir : pw::Recorder::close_unfinished(sessions)) {
+      spdlog::warn("session {} was not closed (the daemon stopped abruptly); its summary is written now", dir.string());
+    }
+    pw::RecorderOptions recorder_options;
+    recorder_options.sessions_dir = sessions;
+    recorder_options.source = source->describe();
+    recorder_options.hop_ms = config.hop_ms;
+    recorder = std::make_unique<pw::Recorder>(
+        recorder_options, [&pipeline, &server_for_problems](const std::string& message, bool resolved) {
+          if (resolved) {
+            spdlog::info("{}", message);
+          } else {
+            spdlog::error("{}; the live stream goes on without a record", message);
+          }
+          if (server_for_problems) {
+            server_for_problems->on_event(
+                pitchwire::protocol::recording_problem_event(pipeline ? pipeline->audio_time_s() : 0.0, message, resolved));
+          }
+        });
+    options.on_event_sent = [rec = recorder.get()](const pitchwire::protocol::Event& event) { rec->record_event(event); };
+  }
   options.audio_clock = [&pipeline] { return pipeline ? pipeline->audio_time_s() : 0.0; };
   // The network thread starts in server.start(), after the pipeline exists.
   options.on_bands = [&pipeline](std::vector<pitchwire::protocol::Band> bands) {
     if (pipeline) pipeline->set_bands(std::move(bands));
   };
   pw::Server server(options);
+  server_for_problems = &server;
   SourceRelay relay(server);
+  RecordingTee tee(server, recorder.get());
 
   // Whatever happens from here on (a port in use throws from server.start()), stop in the order that
   // keeps every thread's partners alive: audio, then analysis, then network.
@@ -226,16 +277,22 @@ int run(const pw::DaemonConfig& config) {
     pw::AudioSource& source;
     std::unique_ptr<pw::Pipeline>& pipeline;
     pw::Server& server;
+    std::unique_ptr<pw::Recorder>& recorder;
     ~StopInOrder() {
       source.stop();
       if (pipeline) pipeline->stop();
       server.stop();
+      if (recorder) recorder->stop();
     }
-  } stop_in_order{*source, pipeline, server};
+  } stop_in_order{*source, pipeline, server, recorder};
 
   source->start(ring, relay);
   server.set_audio_format({source->sample_rate_hz(), source->channel()});
-  pipeline = std::make_unique<pw::Pipeline>(ring, *source, pipeline_options, server);
+  if (recorder) {
+    recorder->start();
+    spdlog::info("session record in {}", recorder->folder().string());
+  }
+  pipeline = std::make_unique<pw::Pipeline>(ring, *source, pipeline_options, tee);
   pipeline->start();
   server.start();
 
@@ -279,7 +336,8 @@ int run(const pw::DaemonConfig& config) {
   const auto t0 = std::chrono::steady_clock::now();
   source->stop();
   pipeline->stop();
-  server.stop();  // stop_in_order finds all three stopped (each stop() may be called twice)
+  server.stop();
+  if (recorder) recorder->stop();  // writes the summary; stop_in_order finds all four stopped
   spdlog::info("stopped in {} ms", std::chrono::duration_cast<std::chrono::milliseconds>(
                                        std::chrono::steady_clock::now() - t0).count());
   spdlog::shutdown();

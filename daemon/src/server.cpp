@@ -215,7 +215,10 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
   void broadcast(const protocol::Encoded& message);  // network thread
   void deliver_all(const std::shared_ptr<const SharedMessage>& shared);
   void post_broadcast(protocol::Encoded message);     // any thread: encoded here, sent by the network thread
-  void broadcast_event(const protocol::Event& event) { broadcast(protocol::encode(event)); }
+  void broadcast_event(const protocol::Event& event) {
+    if (options.on_event_sent) options.on_event_sent(event);
+    broadcast(protocol::encode(event));
+  }
   const std::vector<std::shared_ptr<WsSession>>& snapshot();
   void add_session(const std::shared_ptr<WsSession>& s);
   void remove_session(const WsSession* s);
@@ -1096,7 +1099,12 @@ void Server::on_stats(const protocol::Stats& stats) {
 }
 
 void Server::on_event(const protocol::Event& event) {
-  spdlog::warn("{} at {:.3f} s: {}", protocol::name(event.kind), event.time_s, event.payload.dump());
+  if (event.kind == protocol::EventKind::kOverflow) {
+    spdlog::warn("{} at {:.3f} s: {}", protocol::name(event.kind), event.time_s, event.payload.dump());
+  } else {
+    spdlog::debug("{} at {:.3f} s: {}", protocol::name(event.kind), event.time_s, event.payload.dump());
+  }
+  if (impl_->options.on_event_sent) impl_->options.on_event_sent(event);
   impl_->post_broadcast(protocol::encode(event));
 }
 
@@ -1106,12 +1114,16 @@ void Server::on_end() {
 
 void Server::on_device_lost(const std::string& device, const std::string& reason) {
   spdlog::error("audio input {} lost: {}", device, reason);
-  impl_->post_broadcast(protocol::encode(protocol::device_lost_event(impl_->now_audio(), device, reason)));
+  const protocol::Event event = protocol::device_lost_event(impl_->now_audio(), device, reason);
+  if (impl_->options.on_event_sent) impl_->options.on_event_sent(event);
+  impl_->post_broadcast(protocol::encode(event));
 }
 
 void Server::on_device_back(const std::string& device) {
   spdlog::info("audio input {} is back", device);
-  impl_->post_broadcast(protocol::encode(protocol::device_back_event(impl_->now_audio(), device)));
+  const protocol::Event event = protocol::device_back_event(impl_->now_audio(), device);
+  if (impl_->options.on_event_sent) impl_->options.on_event_sent(event);
+  impl_->post_broadcast(protocol::encode(event));
 }
 
 }  // namespace pitchwire::daemon

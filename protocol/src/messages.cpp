@@ -107,6 +107,10 @@ Event dropped_frames_event(double time_s, std::int64_t count) {
   return event(EventKind::kDroppedFrames, time_s, Json{{"count", count}});
 }
 
+Event recording_problem_event(double time_s, std::string_view message, bool resolved) {
+  return event(EventKind::kRecordingProblem, time_s, Json{{"message", message}, {"resolved", resolved}});
+}
+
 Ack subscribe_ack(const Subscribe& request, double hop_ms) {
   const int n = decimation(request.rate, hop_ms);
   Json fields = Json::array();

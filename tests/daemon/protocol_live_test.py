@@ -86,6 +86,7 @@ class Daemon:
         settings = {
             "token_dir": str(self.token_dir),
             "log_file": str(self.log_file),
+            "session_dir": str(workdir / "sessions"),
             "web_root": str(self.web_root),
             "queue_frames": QUEUE_FRAMES,
             "slow_client_s": SLOW_CLIENT_S,

@@ -123,6 +123,8 @@ int main() {
   server(pw::encode(pw::exercise_started_event(20.0, exercise)));
   server(pw::encode(pw::exercise_ended_event(35.0, exercise, Json{{"voiced_s", 11.2}})));
   server(pw::encode(pw::dropped_frames_event(36.0, 17)));
+  server(pw::encode(pw::recording_problem_event(40.0, "session record: cannot write /home/coach/.local/state/pitchwire/sessions/20261202T101500Z/session.jsonl: No space left on device", false)));
+  server(pw::encode(pw::recording_problem_event(52.0, "session record: writing again", true)));
   server(pw::encode(pw::Error{pw::ErrorCode::kForbidden, "set_band: needs the supervisor role", "b1"}));
   server(pw::encode(pw::Pong{"p1", 41.005}));
   server(pw::encode(pw::Ack{"x1", pw::ClientType::kStartExercise, Json::object()}));

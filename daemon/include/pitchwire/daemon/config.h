@@ -70,6 +70,8 @@ struct DaemonConfig {
   std::string log_level = "info";     // "log_level": trace, debug, info, warn, error, off
   std::filesystem::path log_file;     // "log_file": empty = $XDG_STATE_HOME/pitchwire/pitchwired.log
   std::filesystem::path token_dir;    // "token_dir": empty = $XDG_STATE_HOME/pitchwire (mode 0700)
+  bool record_sessions = true;        // "record_sessions": keep a session record (docs/sessions.md)
+  std::filesystem::path session_dir;  // "session_dir": empty = $XDG_STATE_HOME/pitchwire/sessions (0700)
 
   // Throws ConfigError (first problem found, naming the key, the value and what is allowed).
   void validate() const;

@@ -44,7 +44,7 @@ enum class ClientType : std::uint8_t {
 enum class Role : std::uint8_t { kObserver, kLab, kSupervisor };
 enum class EventKind : std::uint8_t {
   kOverflow, kDeviceLost, kDeviceBack, kBandChanged, kBandCrossing,
-  kExerciseStarted, kExerciseEnded, kMarker, kDroppedFrames
+  kExerciseStarted, kExerciseEnded, kMarker, kDroppedFrames, kRecordingProblem
 };
 enum class BandPosition : std::uint8_t { kBelow, kInside, kAbove, kUnvoiced };
 
@@ -61,9 +61,9 @@ inline constexpr std::array<std::string_view, 8> kServerTypeNames = {
 inline constexpr std::array<std::string_view, 7> kClientTypeNames = {
     "subscribe", "set_band", "clear_band", "start_exercise", "end_exercise", "mark", "ping"};
 inline constexpr std::array<std::string_view, 3> kRoleNames = {"observer", "lab", "supervisor"};
-inline constexpr std::array<std::string_view, 9> kEventKindNames = {
+inline constexpr std::array<std::string_view, 10> kEventKindNames = {
     "overflow", "device_lost", "device_back", "band_changed", "band_crossing",
-    "exercise_started", "exercise_ended", "marker", "dropped_frames"};
+    "exercise_started", "exercise_ended", "marker", "dropped_frames", "recording_problem"};
 inline constexpr std::array<std::string_view, 4> kBandPositionNames = {"below", "inside", "above", "unvoiced"};
 inline constexpr std::array<std::string_view, 17> kErrorCodeNames = {
     "bad_json", "not_an_object", "unknown_type", "unknown_field", "missing_field", "wrong_type",
@@ -250,6 +250,8 @@ struct Event {
 [[nodiscard]] Event exercise_ended_event(double time_s, const Exercise& exercise, Json summary);
 [[nodiscard]] Event marker_event(double time_s, const Mark& mark);
 [[nodiscard]] Event dropped_frames_event(double time_s, std::int64_t count);
+// The session record cannot be written (or can again: resolved = true); the live stream goes on.
+[[nodiscard]] Event recording_problem_event(double time_s, std::string_view message, bool resolved);
 
 // An error: what decode_request() returns for a bad request, and the `error` message sent for it.
 struct Error {

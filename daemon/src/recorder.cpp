@@ -1,0 +1,394 @@
+// recorder.cpp: the session record (see recorder.h and docs/sessions.md).
+#include "pitchwire/daemon/recorder.h"
+
+#include <fcntl.h>
+#include <pthread.h>
+#include <sys/stat.h>
+#include <unistd.h>
+
+#include <algorithm>
+#include <array>
+#include <cerrno>
+#include <chrono>
+#include <cmath>
+#include <cstring>
+#include <ctime>
+#include <fstream>
+#include <nlohmann/json.hpp>
+
+#include "pitchwire/protocol/encode.h"
+
+namespace pitchwire::daemon {
+namespace fs = std::filesystem;
+namespace {
+
+constexpr const char* kFormat = "pitchwire.session.v1";
+constexpr auto kRetryInterval = std::chrono::seconds(3);  // a failing disk is tried again this often
+constexpr auto kWakeInterval = std::chrono::milliseconds(100);
+
+// Summary percentiles come from a histogram of 10-cent bins from 20 Hz up (bounded memory for sessions of
+// any length; each percentile is exact to 10 cents).
+constexpr double kHistLowHz = 20.0;
+constexpr double kHistBinCents = 10.0;
+constexpr std::size_t kHistBins = 1000;  // 20 Hz .. 20 * 2^(10000/1200) = 6.4 kHz
+
+// UTC wall clock, ISO 8601 with milliseconds ("2026-12-02T10:15:00.250Z"); `compact` gives the folder
+// name form ("20261202T101500Z").
+std::string wall_clock(bool compact = false) {
+  const auto now = std::chrono::system_clock::now();
+  const std::time_t t = std::chrono::system_clock::to_time_t(now);
+  std::tm tm{};
+  gmtime_r(&t, &tm);
+  std::array<char, 40> buf{};
+  if (compact) {
+    std::strftime(buf.data(), buf.size(), "%Y%m%dT%H%M%SZ", &tm);
+    return buf.data();
+  }
+  std::strftime(buf.data(), buf.size(), "%Y-%m-%dT%H:%M:%S", &tm);
+  const auto ms = std::chrono::duration_cast<std::chrono::milliseconds>(now.time_since_epoch()).count() % 1000;
+  return std::string(buf.data()) + "." + (ms < 100 ? (ms < 10 ? "00" : "0") : "") + std::to_string(ms) + "Z";
+}
+
+// Fixed decimals per quantity, as the frames on the wire: times to 0.1 ms (whatever the session's length),
+// F0 to 0.001 Hz, voicing and confidence to 0.0001, levels to 0.01 dB; absent as null (JSON) or empty (CSV).
+std::string fixed(std::optional<double> v, int decimals) {
+  if (!v || !std::isfinite(*v)) return "null";
+  std::array<char, 48> buf{};
+  const int n = std::snprintf(buf.data(), buf.size(), "%.*f", decimals, *v);
+  return std::string(buf.data(), static_cast<std::size_t>(std::max(0, n)));
+}
+std::string csv_fixed(std::optional<double> v, int decimals) { return v && std::isfinite(*v) ? fixed(v, decimals) : ""; }
+
+std::optional<double> opt(std::optional<float> f) {
+  return f ? std::optional<double>(static_cast<double>(*f)) : std::nullopt;
+}
+
+// Creates `path` with the given mode (umask can only take bits away; chmod after makes it exact).
+std::FILE* open_private(const fs::path& path, const char* mode_text) {
+  const int fd = ::open(path.c_str(), O_WRONLY | O_CREAT | O_APPEND | O_CLOEXEC, 0600);
+  if (fd < 0) return nullptr;
+  ::fchmod(fd, 0600);
+  std::FILE* f = ::fdopen(fd, mode_text);
+  if (!f) ::close(fd);
+  return f;
+}
+
+bool make_private_folder(const fs::path& dir, std::string& why) {
+  std::error_code ec;
+  fs::create_directories(dir, ec);
+  if (ec) {
+    why = "cannot create " + dir.string() + ": " + ec.message();
+    return false;
+  }
+  if (::chmod(dir.c_str(), 0700) != 0) {
+    why = "cannot make " + dir.string() + " private: " + std::strerror(errno);
+    return false;
+  }
+  return true;
+}
+
+// Writes `text` to `path` (0600) through a temporary file and a rename, so a summary is whole or absent.
+bool write_whole(const fs::path& path, const std::string& text) {
+  const fs::path tmp = path.string() + ".tmp";
+  std::FILE* f = open_private(tmp, "w");
+  if (!f) return false;
+  ::ftruncate(::fileno(f), 0);
+  const bool ok = std::fwrite(text.data(), 1, text.size(), f) == text.size() && std::fflush(f) == 0 &&
+                  ::fdatasync(::fileno(f)) == 0;
+  std::fclose(f);
+  if (!ok) {
+    std::error_code ec;
+    fs::remove(tmp, ec);
+    return false;
+  }
+  return ::rename(tmp.c_str(), path.c_str()) == 0;
+}
+
+}  // namespace
+
+// ---- SessionSummary ----------------------------------------------------------------------------------
+
+void SessionSummary::add_frame(double time_s, std::optional<double> f0_hz, double hop_s) {
+  ++frames_;
+  last_time_s_ = std::max(last_time_s_, time_s);
+  if (!f0_hz || !(*f0_hz > 0.0)) return;
+  ++voiced_frames_;
+  voiced_s_ += hop_s;
+  if (f0s_.empty()) f0s_.assign(kHistBins, 0.0);
+  const double cents = 1200.0 * std::log2(*f0_hz / kHistLowHz);
+  const auto bin = static_cast<std::size_t>(std::clamp(cents / kHistBinCents, 0.0, static_cast<double>(kHistBins - 1)));
+  f0s_[bin] += 1.0;
+}
+
+void SessionSummary::add_event(std::string_view kind) {
+  if (kind == "marker") ++markers_;
+  if (kind == "exercise_ended") ++exercises_;
+  if (kind == "recording_problem") ++problems_;
+}
+
+std::string SessionSummary::to_json(std::string_view closed_how, std::string_view ended_wall,
+                                    std::string_view started_wall) const {
+  // Percentile p of the voiced frames: the centre of the bin holding the frame of rank ceil(p * n).
+  auto percentile = [&](double p) -> std::optional<double> {
+    if (voiced_frames_ == 0 || f0s_.empty()) return std::nullopt;
+    const double rank = std::max(1.0, std::ceil(p * static_cast<double>(voiced_frames_)));
+    double seen = 0;
+    for (std::size_t b = 0; b < f0s_.size(); ++b) {
+      seen += f0s_[b];
+      if (seen >= rank) return kHistLowHz * std::exp2((static_cast<double>(b) + 0.5) * kHistBinCents / 1200.0);
+    }
+    return std::nullopt;
+  };
+  nlohmann::json j;
+  j["format"] = kFormat;
+  j["closed"] = closed_how;
+  j["started_wall"] = started_wall;
+  j["ended_wall"] = ended_wall;
+  j["duration_s"] = std::round(last_time_s_ * 1000.0) / 1000.0;
+  j["frames"] = frames_;
+  j["voiced_s"] = std::round(voiced_s_ * 1000.0) / 1000.0;
+  const auto p5 = percentile(0.05), p50 = percentile(0.5), p95 = percentile(0.95);
+  auto put = [&](const char* key, std::optional<double> v) {
+    j[key] = v ? nlohmann::json(std::round(*v * 10.0) / 10.0) : nlohmann::json(nullptr);
+  };
+  put("f0_p5_hz", p5);
+  put("f0_p50_hz", p50);
+  put("f0_p95_hz", p95);
+  j["f0_range_st"] = p5 && p95 ? nlohmann::json(std::round(1200.0 * std::log2(*p95 / *p5)) / 100.0) : nlohmann::json(nullptr);
+  j["markers"] = markers_;
+  j["exercises"] = exercises_;
+  j["recording_problems"] = problems_;
+  return j.dump(2) + "\n";
+}
+
+// ---- Recorder ----------------------------------------------------------------------------------------
+
+Recorder::Recorder(RecorderOptions options, std::function<void(const std::string&, bool)> on_problem)
+    : options_(std::move(options)), on_problem_(std::move(on_problem)) {}
+
+Recorder::~Recorder() { stop(); }
+
+void Recorder::start() {
+  started_wall_ = wall_clock();
+  const std::string base = wall_clock(true);
+  std::error_code ec;
+  folder_ = options_.sessions_dir / base;
+  for (int n = 2; fs::exists(folder_, ec); ++n) folder_ = options_.sessions_dir / (base + "-" + std::to_string(n));
+  nlohmann::json head{{"type", "session"},        {"format", kFormat},         {"started_wall", started_wall_},
+                      {"source", options_.source}, {"hop_ms", options_.hop_ms}, {"pid", static_cast<int>(::getpid())}};
+  push(head.dump(), false);
+  {
+    const std::lock_guard lock(mutex_);
+    csv_queue_.push_back("time_s,f0_hz,live_f0_hz,voicing,confidence,level_dbfs");
+  }
+  thread_ = std::thread([this] { run(); });
+}
+
+void Recorder::stop() noexcept {
+  {
+    const std::lock_guard lock(mutex_);
+    if (!thread_.joinable()) return;
+    stop_requested_ = true;
+  }
+  wake_.notify_all();
+  thread_.join();
+}
+
+void Recorder::push(std::string line, bool droppable) {
+  const std::lock_guard lock(mutex_);
+  if (droppable && queue_.size() >= options_.queue_lines) {
+    dropped_.fetch_add(1);
+    return;
+  }
+  queue_.push_back(std::move(line));
+}
+
+void Recorder::record_settled(const dsp::SettledFrame& frame) {
+  const std::string t = fixed(frame.time_s, 4), voicing = fixed(frame.voicing, 4), confidence = fixed(frame.confidence, 4),
+                    level = fixed(frame.level_dbfs, 2);
+  std::string line = "{\"type\":\"settled\",\"index\":" + std::to_string(frame.index) + ",\"time_s\":" + t +
+                     ",\"f0_hz\":" + fixed(opt(frame.f0_hz), 3) + ",\"live_f0_hz\":" + fixed(opt(frame.live_f0_hz), 3) +
+                     ",\"voicing\":" + voicing + ",\"confidence\":" + confidence + ",\"level_dbfs\":" + level + "}";
+  std::string row = t + "," + csv_fixed(opt(frame.f0_hz), 3) + "," + csv_fixed(opt(frame.live_f0_hz), 3) + "," + voicing +
+                    "," + confidence + "," + level;
+  const std::lock_guard lock(mutex_);
+  summary_.add_frame(frame.time_s, opt(frame.f0_hz), options_.hop_ms / 1000.0);
+  if (queue_.size() >= options_.queue_lines) {
+    dropped_.fetch_add(1);
+    return;
+  }
+  queue_.push_back(std::move(line));
+  csv_queue_.push_back(std::move(row));
+}
+
+void Recorder::record_stats(const protocol::Stats& stats) {
+  push("{\"type\":\"stats\",\"wall\":\"" + wall_clock() + "\"" + protocol::encode(stats).body, true);
+}
+
+void Recorder::record_event(const protocol::Event& event) {
+  {
+    const std::lock_guard lock(mutex_);
+    summary_.add_event(protocol::name(event.kind));
+    summary_.set_last_time(event.time_s);
+  }
+  // Events are the record of what the supervisor did: never dropped for a full queue.
+  push("{\"type\":\"event\",\"wall\":\"" + wall_clock() + "\"" + protocol::encode(event).body, false);
+}
+
+void Recorder::problem(const std::string& what) {
+  if (failing_) return;
+  failing_ = true;
+  if (on_problem_) on_problem_(what, false);
+}
+
+bool Recorder::open_files() {
+  std::string why;
+  if (!make_private_folder(options_.sessions_dir, why) || !make_private_folder(folder_, why)) {
+    problem("session record: " + why);
+    return false;
+  }
+  log_ = open_private(folder_ / "session.jsonl", "a");
+  csv_ = log_ ? open_private(folder_ / "frames.csv", "a") : nullptr;
+  if (!log_ || !csv_) {
+    problem("session record: cannot open files in " + folder_.string() + ": " + std::strerror(errno));
+    close_files();
+    return false;
+  }
+  return true;
+}
+
+bool Recorder::write_out(std::deque<std::string>& lines) {
+  for (std::size_t i = 0; i < lines.size(); ++i) {
+    std::string& line = lines[i];
+    line.push_back('\n');
+    if (std::fwrite(line.data(), 1, line.size(), log_) != line.size()) {
+      dropped_.fetch_add(static_cast<std::int64_t>(lines.size() - i));  // this one and the rest of the batch
+      return false;
+    }
+    written_.fetch_add(1);
+  }
+  return true;
+}
+
+bool Recorder::flush_files() {
+  return std::fflush(log_) == 0 && std::fflush(csv_) == 0 && ::fdatasync(::fileno(log_)) == 0 &&
+         ::fdatasync(::fileno(csv_)) == 0;
+}
+
+void Recorder::close_files() noexcept {
+  if (log_) std::fclose(log_);
+  if (csv_) std::fclose(csv_);
+  log_ = csv_ = nullptr;
+}
+
+void Recorder::run() {
+  pthread_setname_np(pthread_self(), "pw-recorder");
+  using Clock = std::chrono::steady_clock;
+  auto last_flush = Clock::now();
+  auto last_try = Clock::now() - kRetryInterval;
+  const auto flush_every = std::chrono::duration<double>(options_.flush_interval_s);
+  bool stopping = false;
+  while (!stopping) {
+    std::deque<std::string> lines, rows;
+    {
+      std::unique_lock lock(mutex_);
+      wake_.wait_for(lock, kWakeInterval, [this] { return stop_requested_; });
+      stopping = stop_requested_;
+      lines.swap(queue_);
+      rows.swap(csv_queue_);
+    }
+    if (!log_ && (stopping || Clock::now() - last_try >= kRetryInterval)) {
+      last_try = Clock::now();
+      open_files();
+    }
+    if (!log_) {  // nothing can be written: these lines are lost, and counted
+      dropped_.fetch_add(static_cast<std::int64_t>(lines.size()));
+      continue;
+    }
+    if (const std::int64_t dropped = dropped_.load(); dropped > dropped_reported_) {
+      lines.push_front("{\"type\":\"gap\",\"wall\":\"" + wall_clock() + "\",\"lines_lost\":" +
+                       std::to_string(dropped - dropped_reported_) + "}");
+      dropped_reported_ = dropped;
+    }
+    bool ok = write_out(lines);
+    for (std::string& row : rows) {
+      row.push_back('\n');
+      ok = ok && std::fwrite(row.data(), 1, row.size(), csv_) == row.size();
+    }
+    if (ok && (stopping || Clock::now() - last_flush >= flush_every)) {
+      ok = flush_files();
+      last_flush = Clock::now();
+    }
+    if (!ok) {
+      const int err = errno;
+      problem("session record: cannot write " + (folder_ / "session.jsonl").string() + ": " + std::strerror(err));
+      close_files();  // reopened (appending) on the next try
+      last_try = Clock::now();
+      continue;
+    }
+    if (failing_ && ok) {
+      failing_ = false;
+      if (on_problem_) on_problem_("session record: writing again to " + folder_.string(), true);
+    }
+  }
+  if (log_) {
+    std::string summary;
+    {
+      const std::lock_guard lock(mutex_);
+      summary = summary_.to_json("stopped", wall_clock(), started_wall_);
+    }
+    flush_files();
+    close_files();
+    if (!write_whole(folder_ / "summary.json", summary)) {
+      problem("session record: cannot write " + (folder_ / "summary.json").string() + ": " + std::strerror(errno));
+    }
+  }
+}
+
+std::vector<fs::path> Recorder::close_unfinished(const fs::path& sessions_dir) {
+  std::vector<fs::path> closed;
+  std::error_code ec;
+  if (!fs::is_directory(sessions_dir, ec)) return closed;
+  for (const auto& entry : fs::directory_iterator(sessions_dir, ec)) {
+    const fs::path dir = entry.path();
+    if (!entry.is_directory(ec) || !fs::exists(dir / "session.jsonl", ec) || fs::exists(dir / "summary.json", ec)) continue;
+    std::ifstream in(dir / "session.jsonl");
+    SessionSummary summary;
+    std::string line, started, last_wall;
+    double hop_s = 0.005;
+    while (std::getline(in, line)) {
+      const nlohmann::json j = nlohmann::json::parse(line, nullptr, false);
+      if (j.is_discarded() || !j.is_object()) continue;  // a torn last line
+      const std::string type = j.value("type", "");
+      if (j.contains("wall") && j["wall"].is_string()) last_wall = j["wall"];
+      if (type == "session") {
+        started = j.value("started_wall", "");
+        hop_s = j.value("hop_ms", 5.0) / 1000.0;
+      } else if (type == "settled" && j.contains("time_s") && j["time_s"].is_number()) {
+        const auto& f = j["f0_hz"];
+        summary.add_frame(j["time_s"].get<double>(), f.is_number() ? std::optional<double>(f.get<double>()) : std::nullopt,
+                          hop_s);
+      } else if (type == "event" && j.contains("kind") && j["kind"].is_string()) {
+        summary.add_event(j["kind"].get<std::string>());
+        if (j.contains("time_s") && j["time_s"].is_number()) summary.set_last_time(j["time_s"].get<double>());
+      }
+    }
+    if (last_wall.empty()) {
+      // The log's last change stands in for the end.
+      const auto t = fs::last_write_time(dir / "session.jsonl", ec);
+      const auto sys = std::chrono::time_point_cast<std::chrono::system_clock::duration>(
+          t - fs::file_time_type::clock::now() + std::chrono::system_clock::now());
+      const std::time_t tt = std::chrono::system_clock::to_time_t(sys);
+      std::tm tm{};
+      gmtime_r(&tt, &tm);
+      std::array<char, 40> buf{};
+      std::strftime(buf.data(), buf.size(), "%Y-%m-%dT%H:%M:%SZ", &tm);
+      last_wall = buf.data();
+    }
+    if (write_whole(dir / "summary.json", summary.to_json("recovered", last_wall, started))) closed.push_back(dir);
+  }
+  std::sort(closed.begin(), closed.end());
+  return closed;
+}
+
+}  // namespace pitchwire::daemon

@@ -1,0 +1,157 @@
+#!/usr/bin/python3
+"""session_record_test.py: the session record of a running pitchwired, killed with SIGKILL and restarted.
+
+  session_record_test.py --daemon PATH/pitchwired
+
+Starts `pitchwired --input demo` with a session folder of its own, subscribes to settled frames over the
+protocol, adds a marker as a lab client, then kills the daemon with SIGKILL after a few seconds. Checks
+(docs/sessions.md): one private session folder (0700, files 0600); the log holds the settled frames up to at
+most one second before the last one a client received (the recorder flushes at least every second), and the
+marker; no summary yet. Then starts the daemon again and stops it with SIGTERM: the killed session gets its
+summary (closed "recovered", its frames counted from its log), the new one a summary of its own (closed
+"stopped").
+"""
+import argparse
+import asyncio
+import json
+import os
+import re
+import signal
+import stat
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import websockets
+
+failures = []
+
+
+def check(name, ok, detail=""):
+    print(("PASS: " if ok else "FAIL: ") + name + (f" -- {detail}" if detail else ""))
+    if not ok:
+        failures.append(name)
+    return ok
+
+
+def start(exe, config):
+    proc = subprocess.Popen([exe, "--input", "demo", "--port", "0", "--config", str(config)],
+                            stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
+    deadline = time.monotonic() + 15
+    port = None
+    while time.monotonic() < deadline:
+        line = proc.stdout.readline()
+        if not line:
+            break
+        m = re.match(r"pitchwired: live page http://127\.0\.0\.1:(\d+)/", line)
+        if m:
+            port = int(m.group(1))
+            break
+    if port is None:
+        proc.kill()
+        raise RuntimeError("pitchwired did not print its live page URL within 15 s")
+    return proc, port
+
+
+async def listen(port, lab_token, seconds):
+    """Subscribes to settled frames, adds a marker as a lab client; returns the last settled time received."""
+    last = None
+    async with websockets.connect(f"ws://127.0.0.1:{port}/ws", subprotocols=["pitchwire.v1"],
+                                  origin=f"http://127.0.0.1:{port}") as ws, \
+            websockets.connect(f"ws://127.0.0.1:{port}/ws?token={lab_token}", subprotocols=["pitchwire.v1"],
+                               origin=f"http://127.0.0.1:{port}") as lab:
+        await ws.send(json.dumps({"type": "subscribe", "id": "s1", "settled": True}))
+        await lab.send(json.dumps({"type": "mark", "id": "m1", "label": "probe tone 1"}))
+        end = time.monotonic() + seconds
+        while time.monotonic() < end:
+            try:
+                msg = json.loads(await asyncio.wait_for(ws.recv(), 0.5))
+            except asyncio.TimeoutError:
+                continue
+            if msg.get("type") == "settled":
+                last = msg["time_s"]
+    return last
+
+
+def read_log(path):
+    lines, torn = [], 0
+    for raw in path.read_text(encoding="utf-8").splitlines():
+        try:
+            lines.append(json.loads(raw))
+        except json.JSONDecodeError:
+            torn += 1
+    return lines, torn
+
+
+def mode(path):
+    return stat.S_IMODE(os.stat(path).st_mode)
+
+
+def main():
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--daemon", required=True)
+    args = ap.parse_args()
+    with tempfile.TemporaryDirectory(prefix="pitchwire-session-") as tmp:
+        tmp = Path(tmp)
+        sessions = tmp / "sessions"
+        config = tmp / "pitchwired.jsonc"
+        config.write_text(json.dumps({"token_dir": str(tmp / "tokens"), "log_file": str(tmp / "pitchwired.log"),
+                                      "session_dir": str(sessions)}), encoding="utf-8")
+        proc, port = start(args.daemon, config)
+        try:
+            lab_token = (tmp / "tokens" / "lab.token").read_text(encoding="utf-8").strip()
+            last_received = asyncio.run(listen(port, lab_token, 4.0))
+        finally:
+            proc.send_signal(signal.SIGKILL)
+            proc.wait(10)
+        check("a client received settled frames", last_received is not None and last_received > 2.0, str(last_received))
+        folders = sorted(p for p in sessions.iterdir() if p.is_dir())
+        if not check("one session folder after the kill", len(folders) == 1, str(folders)):
+            return 1
+        first = folders[0]
+        check("sessions folder and session folder are private (0700)",
+              mode(sessions) == 0o700 and mode(first) == 0o700, f"{mode(sessions):o} {mode(first):o}")
+        check("log and CSV are private (0600)", mode(first / "session.jsonl") == 0o600 and mode(first / "frames.csv") == 0o600)
+        check("no summary yet (killed)", not (first / "summary.json").exists())
+        log, torn = read_log(first / "session.jsonl")
+        settled = [x for x in log if x.get("type") == "settled"]
+        last_logged = max((x["time_s"] for x in settled), default=None)
+        check("the log keeps the frames up to at most 1 s before the last one a client received",
+              last_logged is not None and last_received is not None and last_logged >= last_received - 1.0,
+              f"last logged {last_logged}, last received {last_received}, torn lines {torn}")
+        markers = [x for x in log if x.get("type") == "event" and x.get("kind") == "marker"]
+        check("the marker is in the log with its wall clock",
+              len(markers) == 1 and markers[0]["payload"]["label"] == "probe tone 1" and "wall" in markers[0], str(markers))
+        check("the log's first line says what it is", log and log[0].get("type") == "session"
+              and log[0].get("format") == "pitchwire.session.v1", str(log[:1]))
+
+        # Start again: the killed session is closed from its log; the new one gets its own folder.
+        proc, port = start(args.daemon, config)
+        time.sleep(1.5)
+        proc.send_signal(signal.SIGTERM)
+        code = proc.wait(10)
+        check("restarted daemon stops cleanly on SIGTERM", code == 0, f"exit {code}")
+        summary_path = first / "summary.json"
+        if check("the killed session now has a summary", summary_path.exists()):
+            s = json.loads(summary_path.read_text(encoding="utf-8"))
+            check("its summary says it was recovered and counts the frames of its log",
+                  s.get("closed") == "recovered" and s.get("frames") == len(settled) and s.get("markers") == 1,
+                  f"closed {s.get('closed')}, frames {s.get('frames')} vs {len(settled)} logged, markers {s.get('markers')}")
+            check("the summary is private (0600)", mode(summary_path) == 0o600)
+        folders = sorted(p for p in sessions.iterdir() if p.is_dir())
+        check("the second run has a folder of its own", len(folders) == 2, str(folders))
+        if len(folders) == 2:
+            second = [f for f in folders if f != first][0]
+            s2 = json.loads((second / "summary.json").read_text(encoding="utf-8")) if (second / "summary.json").exists() else {}
+            check("the second run's summary says it was stopped", s2.get("closed") == "stopped" and s2.get("frames", 0) > 0,
+                  str(s2))
+        log_text = (tmp / "pitchwired.log").read_text(encoding="utf-8", errors="replace")
+        check("the daemon's log names the session it closed", first.name in log_text and "was not closed" in log_text)
+    print("PASS" if not failures else f"{len(failures)} check(s) failed")
+    return 0 if not failures else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

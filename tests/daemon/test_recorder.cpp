@@ -1,0 +1,189 @@
+// Tests of the session record (daemon/recorder.h): folder and file modes, what each file holds, the summary
+// against values known by construction, recovery of an unfinished session, and a folder that cannot be made.
+#include "pitchwire/daemon/recorder.h"
+
+#include <gtest/gtest.h>
+#include <sys/stat.h>
+#include <unistd.h>
+
+#include <chrono>
+#include <cmath>
+#include <fstream>
+#include <nlohmann/json.hpp>
+#include <sstream>
+#include <string>
+#include <vector>
+
+namespace pitchwire::daemon {
+namespace {
+
+namespace fs = std::filesystem;
+using Json = nlohmann::json;
+
+struct TempDir {
+  fs::path path;
+  TempDir() {
+    std::string tmpl = (fs::temp_directory_path() / "pitchwire-recorder-XXXXXX").string();
+    path = ::mkdtemp(tmpl.data());
+  }
+  ~TempDir() {
+    std::error_code ec;
+    fs::remove_all(path, ec);
+  }
+};
+
+unsigned mode_of(const fs::path& p) {
+  struct stat st{};
+  ::stat(p.c_str(), &st);
+  return st.st_mode & 0777u;
+}
+
+std::vector<std::string> lines_of(const fs::path& p) {
+  std::ifstream in(p);
+  std::vector<std::string> out;
+  for (std::string line; std::getline(in, line);) out.push_back(line);
+  return out;
+}
+
+Json read_json(const fs::path& p) {
+  std::ifstream in(p);
+  return Json::parse(in);
+}
+
+// 1000 frames 5 ms apart: the first 500 unvoiced, the next 500 at 200 Hz (5 s, 2.5 s voiced).
+void record_known_session(Recorder& r) {
+  for (int i = 0; i < 1000; ++i) {
+    dsp::SettledFrame f;
+    f.index = i;
+    f.time_s = i * 0.005;
+    if (i >= 500) f.f0_hz = 200.0f;
+    f.voicing = i >= 500 ? 0.98f : 0.01f;
+    f.level_dbfs = -20.0f;
+    r.record_settled(f);
+  }
+  protocol::Mark mark;
+  mark.label = "stimulus 1";
+  r.record_event(protocol::marker_event(4.0, mark));
+  protocol::Stats stats;
+  stats.time_s = 5.0;
+  stats.window_s = 5.0;
+  stats.voiced_fraction = 0.5;
+  r.record_stats(stats);
+}
+
+TEST(Recorder, WritesAPrivateFolderWithTheLogTheCsvAndASummary) {
+  TempDir tmp;
+  RecorderOptions options;
+  options.sessions_dir = tmp.path / "sessions";
+  options.source = "demo";
+  Recorder r(options, [](const std::string& m, bool) { ADD_FAILURE() << "unexpected problem: " << m; });
+  r.start();
+  record_known_session(r);
+  r.stop();
+
+  const fs::path folder = r.folder();
+  ASSERT_TRUE(fs::is_directory(folder));
+  EXPECT_EQ(mode_of(options.sessions_dir), 0700u);
+  EXPECT_EQ(mode_of(folder), 0700u);
+  for (const char* name : {"session.jsonl", "frames.csv", "summary.json"}) EXPECT_EQ(mode_of(folder / name), 0600u) << name;
+
+  const auto log = lines_of(folder / "session.jsonl");
+  ASSERT_EQ(log.size(), 1u + 1000u + 1u + 1u);
+  const Json head = Json::parse(log[0]);
+  EXPECT_EQ(head["type"], "session");
+  EXPECT_EQ(head["format"], "pitchwire.session.v1");
+  EXPECT_EQ(head["source"], "demo");
+  int settled = 0, events = 0, stats = 0;
+  for (std::size_t i = 1; i < log.size(); ++i) {
+    const Json j = Json::parse(log[i]);  // every line is a JSON object
+    settled += j["type"] == "settled";
+    events += j["type"] == "event";
+    stats += j["type"] == "stats";
+  }
+  EXPECT_EQ(settled, 1000);
+  EXPECT_EQ(events, 1);
+  EXPECT_EQ(stats, 1);
+  const Json frame = Json::parse(log[501]);
+  EXPECT_EQ(frame["index"], 500);
+  EXPECT_DOUBLE_EQ(frame["time_s"].get<double>(), 2.5);
+  EXPECT_DOUBLE_EQ(frame["f0_hz"].get<double>(), 200.0);
+
+  const auto csv = lines_of(folder / "frames.csv");
+  ASSERT_EQ(csv.size(), 1001u);
+  EXPECT_EQ(csv[0], "time_s,f0_hz,live_f0_hz,voicing,confidence,level_dbfs");
+  EXPECT_EQ(csv[1], "0.0000,,,0.0100,0.0000,-20.00");
+  EXPECT_EQ(csv[501], "2.5000,200.000,,0.9800,0.0000,-20.00");
+
+  const Json s = read_json(folder / "summary.json");
+  EXPECT_EQ(s["closed"], "stopped");
+  EXPECT_EQ(s["frames"], 1000);
+  EXPECT_DOUBLE_EQ(s["voiced_s"].get<double>(), 2.5);
+  EXPECT_DOUBLE_EQ(s["duration_s"].get<double>(), 4.995);
+  // The median of 500 frames at 200 Hz, from 10-cent bins: within 5 cents of 200 Hz.
+  EXPECT_LT(std::abs(1200.0 * std::log2(s["f0_p50_hz"].get<double>() / 200.0)), 5.0);
+  EXPECT_EQ(s["markers"], 1);
+  EXPECT_EQ(r.lines_dropped(), 0);
+}
+
+TEST(Recorder, AnUnfinishedSessionIsClosedFromItsLogLeavingATornLineOut) {
+  TempDir tmp;
+  const fs::path sessions = tmp.path / "sessions";
+  RecorderOptions options;
+  options.sessions_dir = sessions;
+  fs::path folder;
+  {
+    Recorder r(options, nullptr);
+    r.start();
+    record_known_session(r);
+    r.stop();
+    folder = r.folder();
+  }
+  // As if killed: no summary, and a line cut short by the kill.
+  fs::remove(folder / "summary.json");
+  {
+    std::ofstream out(folder / "session.jsonl", std::ios::app);
+    out << R"({"type":"settled","index":1000,"time_s":5.0,"f0_h)";
+  }
+  const auto closed = Recorder::close_unfinished(sessions);
+  ASSERT_EQ(closed.size(), 1u);
+  EXPECT_EQ(closed[0], folder);
+  const Json s = read_json(folder / "summary.json");
+  EXPECT_EQ(s["closed"], "recovered");
+  EXPECT_EQ(s["frames"], 1000);
+  EXPECT_DOUBLE_EQ(s["voiced_s"].get<double>(), 2.5);
+  EXPECT_EQ(s["markers"], 1);
+  EXPECT_EQ(mode_of(folder / "summary.json"), 0600u);
+  EXPECT_TRUE(Recorder::close_unfinished(sessions).empty());  // closed once only
+}
+
+TEST(Recorder, AFolderThatCannotBeMadeIsReportedAndRecordingNeverBlocks) {
+  TempDir tmp;
+  { std::ofstream(tmp.path / "not-a-folder") << "x"; }
+  RecorderOptions options;
+  options.sessions_dir = tmp.path / "not-a-folder" / "sessions";
+  std::vector<std::string> problems;
+  std::mutex m;
+  Recorder r(options, [&](const std::string& message, bool resolved) {
+    const std::lock_guard lock(m);
+    if (!resolved) problems.push_back(message);
+  });
+  r.start();
+  const auto t0 = std::chrono::steady_clock::now();
+  record_known_session(r);  // returns at once although nothing can be written
+  EXPECT_LT(std::chrono::steady_clock::now() - t0, std::chrono::seconds(1));
+  for (int i = 0; i < 100; ++i) {
+    {
+      const std::lock_guard lock(m);
+      if (!problems.empty()) break;
+    }
+    std::this_thread::sleep_for(std::chrono::milliseconds(20));
+  }
+  r.stop();
+  const std::lock_guard lock(m);
+  ASSERT_EQ(problems.size(), 1u);  // reported once, not once per line
+  EXPECT_NE(problems[0].find((tmp.path / "not-a-folder").string()), std::string::npos) << problems[0];
+  EXPECT_GT(r.lines_dropped(), 0);
+}
+
+}  // namespace
+}  // namespace pitchwire::daemon
