@@ -355,6 +355,9 @@ int main(int argc, char** argv) {
   sigaddset(&signals, SIGTERM);
   pthread_sigmask(SIG_BLOCK, &signals, nullptr);
   ::signal(SIGPIPE, SIG_IGN);
+  // A file size limit reached by the session record fails that write (EFBIG, reported as a recording
+  // problem) instead of ending the daemon.
+  ::signal(SIGXFSZ, SIG_IGN);
 
   const pw::CommandLine cl = pw::parse_command_line(argc, argv);
   if (cl.exit_code) {

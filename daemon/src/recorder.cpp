@@ -65,7 +65,7 @@ std::optional<double> opt(std::optional<float> f) {
 
 // Creates `path` with the given mode (umask can only take bits away; chmod after makes it exact).
 std::FILE* open_private(const fs::path& path, const char* mode_text) {
-  const int fd = ::open(path.c_str(), O_WRONLY | O_CREAT | O_APPEND | O_CLOEXEC, 0600);
+  const int fd = ::open(path.c_str(), O_RDWR | O_CREAT | O_APPEND | O_CLOEXEC, 0600);
   if (fd < 0) return nullptr;
   ::fchmod(fd, 0600);
   std::FILE* f = ::fdopen(fd, mode_text);
@@ -253,6 +253,16 @@ bool Recorder::open_files() {
     problem("session record: cannot open files in " + folder_.string() + ": " + std::strerror(errno));
     close_files();
     return false;
+  }
+  // After a failed write a file may end in a line cut short: start on a line of its own, so that the cut
+  // line stays one unreadable line instead of spoiling the next.
+  for (std::FILE* f : {log_, csv_}) {
+    struct stat st {};
+    char last = '\n';
+    if (::fstat(::fileno(f), &st) == 0 && st.st_size > 0 && ::pread(::fileno(f), &last, 1, st.st_size - 1) == 1 &&
+        last != '\n') {
+      std::fputc('\n', f);
+    }
   }
   return true;
 }

@@ -3,10 +3,15 @@
 #include "pitchwire/daemon/recorder.h"
 
 #include <gtest/gtest.h>
+#include <sys/resource.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <chrono>
+#include <csignal>
+#include <mutex>
+#include <thread>
 #include <cmath>
 #include <fstream>
 #include <nlohmann/json.hpp>
@@ -183,6 +188,82 @@ TEST(Recorder, AFolderThatCannotBeMadeIsReportedAndRecordingNeverBlocks) {
   ASSERT_EQ(problems.size(), 1u);  // reported once, not once per line
   EXPECT_NE(problems[0].find((tmp.path / "not-a-folder").string()), std::string::npos) << problems[0];
   EXPECT_GT(r.lines_dropped(), 0);
+}
+
+// A disk that fills mid-session, made with a file size limit (RLIMIT_FSIZE; SIGXFSZ ignored, so writes past
+// it fail with EFBIG as on a full disk). The failure is reported once; what was written stays readable; when
+// writing works again that is reported, and a gap line counts the lines lost meanwhile.
+TEST(Recorder, ADiskThatFillsIsReportedOnceAndWritingResumesWithAGapLine) {
+  TempDir tmp;
+  RecorderOptions options;
+  options.sessions_dir = tmp.path / "sessions";
+  std::mutex m;
+  std::vector<std::pair<std::string, bool>> reports;
+  Recorder r(options, [&](const std::string& message, bool resolved) {
+    const std::lock_guard lock(m);
+    reports.emplace_back(message, resolved);
+  });
+  auto count = [&](bool resolved) {
+    const std::lock_guard lock(m);
+    return std::count_if(reports.begin(), reports.end(), [&](const auto& x) { return x.second == resolved; });
+  };
+  ::signal(SIGXFSZ, SIG_IGN);
+  rlimit old{};
+  ::getrlimit(RLIMIT_FSIZE, &old);
+  rlimit small = old;
+  small.rlim_cur = 64 * 1024;
+  ASSERT_EQ(::setrlimit(RLIMIT_FSIZE, &small), 0);
+  r.start();
+  std::int64_t index = 0;
+  auto feed = [&](int frames) {
+    for (int i = 0; i < frames; ++i, ++index) {
+      dsp::SettledFrame f;
+      f.index = index;
+      f.time_s = static_cast<double>(index) * 0.005;
+      f.f0_hz = 180.0f;
+      r.record_settled(f);
+    }
+  };
+  for (int round = 0; round < 100 && count(false) == 0; ++round) {  // about 130 bytes a line: full after ~500
+    feed(100);
+    std::this_thread::sleep_for(std::chrono::milliseconds(50));
+  }
+  ASSERT_EQ(count(false), 1) << "no problem reported with a 64 KiB file limit";
+  feed(200);  // lost: the disk is still full
+  std::this_thread::sleep_for(std::chrono::milliseconds(300));
+  EXPECT_EQ(count(false), 1);  // reported once, not per line
+  ASSERT_EQ(::setrlimit(RLIMIT_FSIZE, &old), 0);  // room again
+  for (int round = 0; round < 100 && count(true) == 0; ++round) {
+    feed(10);
+    std::this_thread::sleep_for(std::chrono::milliseconds(50));
+  }
+  r.stop();
+  EXPECT_EQ(count(true), 1) << "writing again was not reported";
+  {
+    const std::lock_guard lock(m);
+    EXPECT_NE(reports[0].first.find("session.jsonl"), std::string::npos) << reports[0].first;
+    EXPECT_NE(reports[0].first.find("too large"), std::string::npos) << reports[0].first;  // strerror(EFBIG)
+  }
+  const auto log = lines_of(r.folder() / "session.jsonl");
+  std::size_t parsed = 0, gaps = 0, torn = 0;
+  std::int64_t lost = 0;
+  for (const auto& line : log) {
+    const Json j = Json::parse(line, nullptr, false);
+    if (j.is_discarded()) {
+      ++torn;  // the line the limit cut
+      continue;
+    }
+    ++parsed;
+    if (j["type"] == "gap") {
+      ++gaps;
+      lost += j["lines_lost"].get<std::int64_t>();
+    }
+  }
+  EXPECT_GT(parsed, 300u);  // what was written before the disk filled stays
+  EXPECT_LE(torn, 1u);
+  EXPECT_EQ(gaps, 1u);
+  EXPECT_GE(lost, 200);
+  EXPECT_TRUE(fs::exists(r.folder() / "summary.json"));
 }
 
 }  // namespace
