@@ -457,7 +457,8 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
   }
 
   void handle(protocol::Mark& r) {
-    const protocol::Event event = protocol::marker_event(server_->now_audio(), r);
+    protocol::Event event = protocol::marker_event(server_->now_audio(), r);
+    event.by = role_;
     ack(r.id, protocol::ClientType::kMark);
     server_->broadcast_event(event);
   }
@@ -482,7 +483,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     }
     ack(r.id, protocol::ClientType::kSetBand);
     if (server_->options.on_bands) server_->options.on_bands(bands);
-    server_->broadcast_event(protocol::band_changed_event(server_->now_audio(), r.band.name, bands));
+    server_->broadcast_event(by_me(protocol::band_changed_event(server_->now_audio(), r.band.name, bands)));
   }
 
   void handle(protocol::ClearBand& r) {
@@ -500,7 +501,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     }
     ack(r.id, protocol::ClientType::kClearBand);
     if (server_->options.on_bands) server_->options.on_bands(bands);
-    server_->broadcast_event(protocol::band_changed_event(server_->now_audio(), r.name, bands));
+    server_->broadcast_event(by_me(protocol::band_changed_event(server_->now_audio(), r.name, bands)));
   }
 
   void handle(protocol::StartExercise& r) {
@@ -524,7 +525,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       server_->exercise_start_voiced = server_->voiced_frames.load();
     }
     ack(r.id, protocol::ClientType::kStartExercise);
-    server_->broadcast_event(protocol::exercise_started_event(exercise.started_s, exercise));
+    server_->broadcast_event(by_me(protocol::exercise_started_event(exercise.started_s, exercise)));
   }
 
   void handle(protocol::EndExercise& r) {
@@ -548,7 +549,13 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
                            {"voiced_s", static_cast<double>(voiced) * hop_s},
                            {"voiced_fraction", frames > 0 ? static_cast<double>(voiced) / static_cast<double>(frames) : 0.0}};
     ack(r.id, protocol::ClientType::kEndExercise);
-    server_->broadcast_event(protocol::exercise_ended_event(now, exercise, std::move(summary)));
+    server_->broadcast_event(by_me(protocol::exercise_ended_event(now, exercise, std::move(summary))));
+  }
+
+  // An event caused by this connection's request: it says which role made the change.
+  protocol::Event by_me(protocol::Event event) const {
+    event.by = role_;
+    return event;
   }
 
   void ack(const std::string& id, protocol::ClientType type) {

@@ -154,10 +154,9 @@ Encoded encode(const Stats& m) {
 }
 
 Encoded encode(const Event& m) {
-  return from_json(ServerType::kEvent,
-                   Json{{"kind", name(m.kind)},
-                        {"time_s", m.time_s},
-                        {"payload", m.payload.is_object() ? m.payload : Json::object()}});
+  Json members{{"kind", name(m.kind)}, {"time_s", m.time_s}, {"payload", m.payload.is_object() ? m.payload : Json::object()}};
+  if (m.by) members["by"] = name(*m.by);
+  return from_json(ServerType::kEvent, std::move(members));
 }
 
 Encoded encode(const Error& m) {

@@ -20,7 +20,7 @@ Json band_json(const Band& band) {
   return Json{{"name", band.name}, {"low_hz", band.low_hz}, {"high_hz", band.high_hz}};
 }
 
-Event event(EventKind kind, double time_s, Json payload) { return Event{kind, time_s, std::move(payload)}; }
+Event event(EventKind kind, double time_s, Json payload) { return Event{kind, time_s, std::move(payload), std::nullopt}; }
 
 }  // namespace
 

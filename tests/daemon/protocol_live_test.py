@@ -769,6 +769,8 @@ async def test_requests(ctx):
           and abs(band["high_hz"] - 329.63) < 0.01, "docs/protocol.md set_band; ISO 16 (A4 = 440 Hz)", short(ev))
     ev_lab = await lab.wait(lambda m: m.get("type") == "event" and m.get("kind") == "band_changed", 3, s0)
     check("band_changed reaches every connection (lab too)", ev_lab is not None, ref + " set_band: every connection", "")
+    check("band_changed says who made the change: by supervisor", ev and ev.get("by") == "supervisor",
+          "docs/protocol.md event: by", short(ev))
     late = await ctx.open("late observer")
     h = await ctx.hello_of(late)
     check("a new connection's hello lists the band", h and [x.get("name") for x in h.get("bands", [])] == ["target"]
@@ -801,7 +803,10 @@ async def test_requests(ctx):
     check("stats list the bands in the order set, and the whole range holds every voiced frame (share 1.0)",
           st and [b["name"] for b in st["bands"]] == ["target", "whole"] and whole["inside_fraction"] == 1.0,
           "docs/protocol.md stats.bands; by construction", short(st and st.get("bands")))
+    m0 = len(mon.msgs)
     await sup.request({"type": "clear_band", "id": "c-0", "name": "whole"})
+    await mon.wait(lambda m: m.get("type") == "event" and m.get("kind") == "band_changed"
+                   and m["payload"].get("name") == "whole", 3, m0)
     m0 = len(mon.msgs)
     ack = await sup.request({"type": "clear_band", "id": "c-1", "name": "target"})
     ev = await mon.wait(lambda m: m.get("type") == "event" and m.get("kind") == "band_changed", 3, m0)

@@ -122,8 +122,9 @@ def main():
               last_logged is not None and last_received is not None and last_logged >= last_received - 1.0,
               f"last logged {last_logged}, last received {last_received}, torn lines {torn}")
         markers = [x for x in log if x.get("type") == "event" and x.get("kind") == "marker"]
-        check("the marker is in the log with its wall clock",
-              len(markers) == 1 and markers[0]["payload"]["label"] == "probe tone 1" and "wall" in markers[0], str(markers))
+        check("the marker is in the log with its wall clock and who added it (by lab)",
+              len(markers) == 1 and markers[0]["payload"]["label"] == "probe tone 1" and "wall" in markers[0]
+              and markers[0].get("by") == "lab", str(markers))
         check("the log's first line says what it is", log and log[0].get("type") == "session"
               and log[0].get("format") == "pitchwire.session.v1", str(log[:1]))
 

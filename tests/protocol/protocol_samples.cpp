@@ -119,6 +119,11 @@ int main() {
   server(pw::encode(pw::device_back_event(9.0, "USB Audio")));
   server(pw::encode(pw::band_changed_event(10.0, "target", {{"target", 165.0, 220.0}})));
   server(pw::encode(pw::band_changed_event(11.0, "target", {})));
+  {
+    pw::Event by_supervisor = pw::band_changed_event(11.5, "target", {{"target", 165.0, 220.0}});
+    by_supervisor.by = pw::Role::kSupervisor;
+    server(pw::encode(by_supervisor));
+  }
   server(pw::encode(pw::band_crossing_event(12.0, "target", pw::BandPosition::kUnvoiced, pw::BandPosition::kAbove, 11.85)));
   server(pw::encode(pw::exercise_started_event(20.0, exercise)));
   server(pw::encode(pw::exercise_ended_event(35.0, exercise, Json{{"voiced_s", 11.2}})));

@@ -128,6 +128,10 @@ TEST(ProtocolEncode, OtherMessagesReadBack) {
   EXPECT_EQ(ev["kind"], "band_crossing");
   EXPECT_EQ(ev["time_s"], 1.5);
   EXPECT_EQ(ev["payload"], Json({{"name", "target"}, {"from", "below"}, {"to", "inside"}, {"since_s", 1.25}}));
+  EXPECT_FALSE(ev.contains("by"));  // the daemon's own
+  Event changed = band_changed_event(2.0, "target", {});
+  changed.by = Role::kSupervisor;
+  EXPECT_EQ(read_back(encode(changed), 8)["by"], "supervisor");
 
   const Json err = read_back(encode(Error{ErrorCode::kForbidden, "set_band: needs the supervisor role", "b1"}), 9);
   EXPECT_EQ(err["code"], "forbidden");

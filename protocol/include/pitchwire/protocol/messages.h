@@ -236,6 +236,7 @@ struct Event {
   EventKind kind = EventKind::kMarker;
   double time_s = 0.0;              // audio clock
   Json payload = Json::object();    // members depend on kind (docs/protocol.md, schema/event.json)
+  std::optional<Role> by;           // the role of the connection whose request caused it; empty: the daemon
 };
 
 // Events with the payload each kind carries. Use these rather than filling Event by hand.
