@@ -198,13 +198,14 @@ InputSpec parse_input_as(const Subject& subject, const std::string& text) {
 // ---- the configuration file ----------------------------------------------------------------------------
 
 // The keys of the file, in the order of DaemonConfig (and of to_json_text and config/pitchwired.jsonc).
-constexpr std::array<std::string_view, 29> kKeys = {
+constexpr std::array<std::string_view, 30> kKeys = {
     "input", "sample_rate_hz", "buffer_frames", "channel", "loop", "ring_s",                      // audio
     "hop_ms", "settle_ms", "f0_min_hz", "f0_max_hz", "hum_cancel", "reference_hz",               // estimator
     "bind", "port", "web_root", "max_clients", "max_message_bytes", "queue_frames",              // server
     "slow_client_s", "requests_per_s", "request_burst", "stats_interval_s", "stats_window_s",
     "band_dwell_s",
-    "log_level", "log_file", "token_dir", "record_sessions", "session_dir"};                                                        // files
+    "log_level", "log_file", "token_dir", "record_sessions", "session_dir",
+    "exercises_file"};                                                        // files
 
 std::string lower(std::string_view text) {
   std::string out(text);
@@ -329,6 +330,8 @@ class FileReader {
       config.record_sessions = boolean(key, value);
     } else if (key == "session_dir") {
       config.session_dir = path_value(key, value);
+    } else if (key == "exercises_file") {
+      config.exercises_file = path_value(key, value);
     } else {
       throw ConfigError(unknown_key_message(key));
     }
@@ -682,6 +685,7 @@ void DaemonConfig::validate() const {
   check_path(key("log_file"), log_file.string());
   check_path(key("token_dir"), token_dir.string());
   check_path(key("session_dir"), session_dir.string());
+  check_path(key("exercises_file"), exercises_file.string());
 
   // Settings that depend on each other.
   if (!(f0_max_hz > kF0RatioMin * f0_min_hz)) {
@@ -946,6 +950,7 @@ std::string to_json_text(const DaemonConfig& config) {
   out["token_dir"] = config.token_dir.string();
   out["record_sessions"] = config.record_sessions;
   out["session_dir"] = config.session_dir.string();
+  out["exercises_file"] = config.exercises_file.string();
   return out.dump(2, ' ', false, OrderedJson::error_handler_t::replace);
 }
 

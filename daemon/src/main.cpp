@@ -26,6 +26,7 @@
 
 #include "pitchwire/daemon/audio_source.h"
 #include "pitchwire/daemon/config.h"
+#include "pitchwire/daemon/exercises.h"
 #include "pitchwire/daemon/pipeline.h"
 #include "pitchwire/daemon/recorder.h"
 #include "pitchwire/daemon/server.h"
@@ -36,7 +37,6 @@ namespace fs = std::filesystem;
 namespace {
 
 // Exercise presets start_exercise accepts until preset files are configured.
-const std::vector<std::string> kDefaultPresets = {"sustained_vowel", "pitch_glide", "reading", "conversation"};
 
 // Rotating log: 5 files of 5 MB at most.
 constexpr std::size_t kLogFileBytes = 5 * 1024 * 1024;
@@ -214,7 +214,17 @@ int run(const pw::DaemonConfig& config) {
   options.request_burst = config.request_burst;
   options.supervisor_token = supervisor_token;
   options.lab_token = lab_token;
-  options.presets = kDefaultPresets;
+  {
+    // The presets' band limits are checked as set_band requests are, against the same range.
+    pitchwire::protocol::DecodeOptions limits;
+    limits.reference_hz = config.reference_hz;
+    limits.f0_min_hz = config.f0_min_hz;
+    limits.f0_max_hz = config.f0_max_hz;
+    const fs::path presets_file =
+        config.exercises_file.empty() ? fs::path(PITCHWIRE_DEFAULT_EXERCISES) : config.exercises_file;
+    options.presets = pw::load_exercise_presets(presets_file, limits);
+    spdlog::info("{} exercise presets from {}", options.presets.size(), presets_file.string());
+  }
   options.hello.server_version = PITCHWIRE_VERSION;
   options.hello.hop_ms = config.hop_ms;
   options.hello.settle_ms = config.settle_ms;

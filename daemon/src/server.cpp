@@ -506,13 +506,16 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
 
   void handle(protocol::StartExercise& r) {
     const auto& presets = server_->options.presets;
-    if (std::find(presets.begin(), presets.end(), r.preset) == presets.end()) {
+    const auto preset = std::find_if(presets.begin(), presets.end(),
+                                     [&](const ExercisePreset& p) { return p.name == r.preset; });
+    if (preset == presets.end()) {
       std::string known;
-      for (const auto& p : presets) known += (known.empty() ? "" : ", ") + p;
+      for (const auto& p : presets) known += (known.empty() ? "" : ", ") + p.name;
       refuse({protocol::ErrorCode::kUnknownPreset, "no exercise preset \"" + r.preset + "\"; known: " + known, r.id});
       return;
     }
     protocol::Exercise exercise{r.preset, r.label, server_->now_audio()};
+    std::vector<protocol::Band> bands;
     {
       std::lock_guard lock(server_->state_mutex);
       if (server_->exercise) {
@@ -520,11 +523,34 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
                 "exercise \"" + server_->exercise->preset + "\" is running; end it first", r.id});
         return;
       }
+      if (server_->bands.size() + preset->bands.size() > kMaxBands) {
+        refuse({protocol::ErrorCode::kOutOfRange,
+                "exercise \"" + r.preset + "\" sets " + std::to_string(preset->bands.size()) + " bands; at most " +
+                    std::to_string(kMaxBands) + " in all: clear some first",
+                r.id});
+        return;
+      }
+      // The preset's bands replace bands of the same name.
+      for (const protocol::Band& b : preset->bands) {
+        auto it = std::find_if(server_->bands.begin(), server_->bands.end(),
+                               [&](const protocol::Band& x) { return x.name == b.name; });
+        if (it != server_->bands.end()) {
+          *it = b;
+        } else {
+          server_->bands.push_back(b);
+        }
+      }
+      bands = server_->bands;
       server_->exercise = exercise;
       server_->exercise_start_frames = server_->settled_frames.load();
       server_->exercise_start_voiced = server_->voiced_frames.load();
     }
     ack(r.id, protocol::ClientType::kStartExercise);
+    if (!preset->bands.empty()) {
+      if (server_->options.on_bands) server_->options.on_bands(bands);
+      for (const protocol::Band& b : preset->bands)
+        server_->broadcast_event(by_me(protocol::band_changed_event(exercise.started_s, b.name, bands)));
+    }
     server_->broadcast_event(by_me(protocol::exercise_started_event(exercise.started_s, exercise)));
   }
 

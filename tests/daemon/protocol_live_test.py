@@ -828,6 +828,13 @@ async def test_requests(ctx):
     check("start_exercise sustained_vowel -> ack and exercise_started", ack and ack.get("type") == "ack" and ev
           and ev["payload"].get("preset") == "sustained_vowel" and ev["payload"].get("label") == "Vowel, comfortable pitch",
           ref + " start_exercise", short(ev))
+    bev = await mon.wait(lambda m: m.get("type") == "event" and m.get("kind") == "band_changed"
+                         and m["payload"].get("name") == "target", 3, m0)
+    target = next((b for b in (bev or {}).get("payload", {}).get("bands", []) if b.get("name") == "target"), None)
+    check("the preset sets its band, by supervisor: target -1st..+1st around 100 Hz = 94.387..105.946 Hz",
+          bev and bev.get("by") == "supervisor" and target and abs(target["low_hz"] - 94.387) < 0.01
+          and abs(target["high_hz"] - 105.946) < 0.01,
+          "config/exercises.jsonc; 100 * 2^(+-1/12) (equal temperament, common practice)", short(bev))
     late = await ctx.open("late observer 2")
     h = await ctx.hello_of(late)
     check("a new connection's hello shows the running exercise", h and (h.get("exercise") or {}).get("preset") == "sustained_vowel",

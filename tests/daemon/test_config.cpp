@@ -156,7 +156,7 @@ TEST(Config, ShippedFileHasEveryKey) {
   // to_json_text and missing here would be a setting nobody is told about.
   const std::set<std::string> written = keys_of(to_json_text(defaults()));
   EXPECT_EQ(keys_of(read_text(shipped_config())), written);
-  EXPECT_EQ(written.size(), 29u);
+  EXPECT_EQ(written.size(), 30u);
 }
 
 TEST(Config, EveryKeyIsReadFromTheFile) {
@@ -191,6 +191,7 @@ TEST(Config, EveryKeyIsReadFromTheFile) {
   changed.token_dir = "/var/tmp/tokens";
   changed.record_sessions = false;
   changed.session_dir = "/var/tmp/sessions";
+  changed.exercises_file = "/srv/exercises.jsonc";
   ASSERT_NO_THROW(changed.validate());
 
   const std::string text = to_json_text(changed);

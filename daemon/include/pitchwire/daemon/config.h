@@ -72,6 +72,7 @@ struct DaemonConfig {
   std::filesystem::path token_dir;    // "token_dir": empty = $XDG_STATE_HOME/pitchwire (mode 0700)
   bool record_sessions = true;        // "record_sessions": keep a session record (docs/sessions.md)
   std::filesystem::path session_dir;  // "session_dir": empty = $XDG_STATE_HOME/pitchwire/sessions (0700)
+  std::filesystem::path exercises_file;  // "exercises_file": empty = the shipped config/exercises.jsonc
 
   // Throws ConfigError (first problem found, naming the key, the value and what is allowed).
   void validate() const;

@@ -20,6 +20,7 @@
 #include <memory>
 #include <string>
 
+#include "pitchwire/daemon/exercises.h"
 #include "pitchwire/daemon/audio_source.h"
 #include "pitchwire/daemon/pipeline.h"
 #include "pitchwire/protocol/decode.h"
@@ -39,7 +40,7 @@ struct ServerOptions {
   double request_burst = 40.0;
   std::string supervisor_token;       // hex; a connection that presents it is a supervisor
   std::string lab_token;              // hex; ... a lab client
-  std::vector<std::string> presets;   // exercise preset names start_exercise accepts
+  std::vector<ExercisePreset> presets;  // the exercises start_exercise accepts, with the bands they set
   protocol::Hello hello;              // the greeting's fixed part (versions, audio format, hop, range)
   std::function<double()> audio_clock;  // seconds on the audio clock now (Pipeline::audio_time_s)
   // Called on the network thread with every band set after a set_band or clear_band (Pipeline::set_bands).

@@ -1,0 +1,39 @@
+// exercises.h: exercise presets, read from a JSON file with comments (config/exercises.jsonc).
+//
+// A preset names an exercise the supervisor can start (start_exercise), with the target bands it sets when it
+// starts and the measures that matter for it (listed for clients and reports). Band limits are written as a
+// set_band request writes them (Hz, note names, semitones re the reference) and checked by the very same
+// decoder, against the search range.
+//
+// Thread contract: load on the control thread at start; the result is plain values.
+#pragma once
+
+#include <filesystem>
+#include <stdexcept>
+#include <string>
+#include <vector>
+
+#include "pitchwire/protocol/decode.h"
+#include "pitchwire/protocol/messages.h"
+
+namespace pitchwire::daemon {
+
+struct ExercisePreset {
+  std::string name;                    // what start_exercise names
+  std::string label;                   // for people
+  std::string description;
+  std::vector<protocol::Band> bands;   // set when the exercise starts (limits in Hz)
+  std::vector<std::string> measures;   // the measures that matter for it (names of stats members)
+};
+
+// Thrown with one line: "FILE: preset NAME: KEY: what is wrong and what is allowed".
+class PresetError : public std::runtime_error {
+ public:
+  using std::runtime_error::runtime_error;
+};
+
+// Reads and checks every preset of `file`. limits: reference and search range for the band limits.
+[[nodiscard]] std::vector<ExercisePreset> load_exercise_presets(const std::filesystem::path& file,
+                                                                const protocol::DecodeOptions& limits);
+
+}  // namespace pitchwire::daemon
