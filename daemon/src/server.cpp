@@ -13,6 +13,7 @@
 //                     The shared state (bands, exercise) is guarded by a small mutex, never held
 //                     across I/O, because other threads read it for exercise summaries.
 #include "pitchwire/daemon/server.h"
+#include "pitchwire/daemon/exercise_summary.h"
 
 #include <algorithm>
 #include <array>
@@ -203,10 +204,18 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
   std::mutex state_mutex;
   std::vector<protocol::Band> bands;
   std::optional<protocol::Exercise> exercise;
-  std::int64_t exercise_start_frames = 0, exercise_start_voiced = 0;
-  // Settled frames seen and voiced ones (analysis thread writes, exercise summaries read).
-  std::atomic<std::int64_t> settled_frames{0};
-  std::atomic<std::int64_t> voiced_frames{0};
+  // The running exercise's measures: fed with every settled frame on the analysis thread while
+  // exercise_running, read at its end on the network thread; exercise_bands mirrors `bands` for it.
+  // Lock order: state_mutex before exercise_mutex.
+  std::mutex exercise_mutex;
+  std::optional<ExerciseSummary> exercise_summary;
+  std::vector<protocol::Band> exercise_bands;
+  std::vector<std::string> exercise_measures;
+  std::atomic<bool> exercise_running{false};
+  void mirror_bands(const std::vector<protocol::Band>& now) {
+    const std::lock_guard lock(exercise_mutex);
+    exercise_bands = now;
+  }
 
   double now_audio() const { return options.audio_clock ? options.audio_clock() : 0.0; }
 
@@ -482,6 +491,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       bands = server_->bands;
     }
     ack(r.id, protocol::ClientType::kSetBand);
+    server_->mirror_bands(bands);
     if (server_->options.on_bands) server_->options.on_bands(bands);
     server_->broadcast_event(by_me(protocol::band_changed_event(server_->now_audio(), r.band.name, bands)));
   }
@@ -500,6 +510,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       bands = server_->bands;
     }
     ack(r.id, protocol::ClientType::kClearBand);
+    server_->mirror_bands(bands);
     if (server_->options.on_bands) server_->options.on_bands(bands);
     server_->broadcast_event(by_me(protocol::band_changed_event(server_->now_audio(), r.name, bands)));
   }
@@ -542,8 +553,11 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       }
       bands = server_->bands;
       server_->exercise = exercise;
-      server_->exercise_start_frames = server_->settled_frames.load();
-      server_->exercise_start_voiced = server_->voiced_frames.load();
+      const std::lock_guard summary_lock(server_->exercise_mutex);
+      server_->exercise_summary.emplace(server_->options.hello.hop_ms / 1000.0);
+      server_->exercise_bands = bands;
+      server_->exercise_measures = preset->measures;
+      server_->exercise_running.store(true);
     }
     ack(r.id, protocol::ClientType::kStartExercise);
     if (!preset->bands.empty()) {
@@ -556,7 +570,8 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
 
   void handle(protocol::EndExercise& r) {
     protocol::Exercise exercise;
-    std::int64_t frames = 0, voiced = 0;
+    protocol::Json summary;
+    const double now = server_->now_audio();
     {
       std::lock_guard lock(server_->state_mutex);
       if (!server_->exercise) {
@@ -565,15 +580,11 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       }
       exercise = *server_->exercise;
       server_->exercise.reset();
-      frames = server_->settled_frames.load() - server_->exercise_start_frames;
-      voiced = server_->voiced_frames.load() - server_->exercise_start_voiced;
+      const std::lock_guard summary_lock(server_->exercise_mutex);
+      server_->exercise_running.store(false);
+      summary = server_->exercise_summary->to_json(now - exercise.started_s, server_->exercise_measures);
+      server_->exercise_summary.reset();
     }
-    const double hop_s = server_->options.hello.hop_ms / 1000.0;
-    const double now = server_->now_audio();
-    protocol::Json summary{{"duration_s", now - exercise.started_s},
-                           {"settled_s", static_cast<double>(frames) * hop_s},
-                           {"voiced_s", static_cast<double>(voiced) * hop_s},
-                           {"voiced_fraction", frames > 0 ? static_cast<double>(voiced) / static_cast<double>(frames) : 0.0}};
     ack(r.id, protocol::ClientType::kEndExercise);
     server_->broadcast_event(by_me(protocol::exercise_ended_event(now, exercise, std::move(summary))));
   }
@@ -1117,8 +1128,10 @@ void Server::on_live(const dsp::LiveFrame& frame) {
 }
 
 void Server::on_settled(const dsp::SettledFrame& frame) {
-  impl_->settled_frames.fetch_add(1, std::memory_order_relaxed);
-  if (frame.f0_hz) impl_->voiced_frames.fetch_add(1, std::memory_order_relaxed);
+  if (impl_->exercise_running.load(std::memory_order_acquire)) {
+    const std::lock_guard lock(impl_->exercise_mutex);
+    if (impl_->exercise_summary) impl_->exercise_summary->add(frame.f0_hz, impl_->exercise_bands);
+  }
   auto batch = std::make_shared<SettledBatch>();
   batch->index = frame.index;
   batch->body = protocol::encode_settled(frame).body;

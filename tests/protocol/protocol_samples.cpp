@@ -126,7 +126,12 @@ int main() {
   }
   server(pw::encode(pw::band_crossing_event(12.0, "target", pw::BandPosition::kUnvoiced, pw::BandPosition::kAbove, 11.85)));
   server(pw::encode(pw::exercise_started_event(20.0, exercise)));
-  server(pw::encode(pw::exercise_ended_event(35.0, exercise, Json{{"voiced_s", 11.2}})));
+  server(pw::encode(pw::exercise_ended_event(
+      35.0, exercise,
+      Json{{"duration_s", 15.0}, {"settled_s", 15.0}, {"voiced_s", 11.2}, {"voiced_fraction", 0.747}, {"cycle_dose", 2284.6},
+           {"f0_p5_hz", 196.2}, {"f0_p50_hz", 203.9}, {"f0_p95_hz", 211.0}, {"f0_range_st", 1.259}, {"f0_sd_st", 0.38},
+           {"bands", Json::array({Json{{"name", "target"}, {"inside_fraction", 0.912}}})},
+           {"measures", Json::array({"f0_sd_st", "voiced_s", "inside_fraction"})}})));
   server(pw::encode(pw::dropped_frames_event(36.0, 17)));
   server(pw::encode(pw::recording_problem_event(40.0, "session record: cannot write /home/coach/.local/state/pitchwire/sessions/20261202T101500Z/session.jsonl: No space left on device", false)));
   server(pw::encode(pw::recording_problem_event(52.0, "session record: writing again", true)));
