@@ -44,6 +44,7 @@ class Forwarder final : public dsp::FrameSink {
       : listener_(listener), frames_(frames), options_(options), band_slot_(band_slot) {
     const double hop_s = options.tracker.hop_ms / 1000.0;
     window_.assign(static_cast<std::size_t>(std::ceil(options.stats_window_s / hop_s)), std::nullopt);
+    levels_.assign(window_.size(), -200.0f);
     scratch_.reserve(window_.size());
     interval_frames_ = std::max<std::int64_t>(1, std::llround(options.stats_interval_s / hop_s));
   }
@@ -64,6 +65,7 @@ class Forwarder final : public dsp::FrameSink {
   void on_settled(const dsp::SettledFrame& frame) override {
     listener_.on_settled(frame);
     window_[next_] = frame.f0_hz;
+    levels_[next_] = frame.level_dbfs;
     next_ = (next_ + 1) % window_.size();
     filled_ = std::min(filled_ + 1, window_.size());
     if ((frame.index + 1) % interval_frames_ == 0) listener_.on_stats(stats(frame.time_s));
@@ -88,6 +90,22 @@ class Forwarder final : public dsp::FrameSink {
       s.f0_p5_hz = round3(range->p5_hz);
       s.f0_p50_hz = round3(range->median_hz);
       s.f0_p95_hz = round3(range->p95_hz);
+      s.f0_min_hz = round3(scratch_.front());
+      s.f0_max_hz = round3(scratch_.back());
+      s.f0_range_st = round3(12.0 * std::log2(range->p95_hz / range->p5_hz));
+    }
+    // Level over the window: the mean of the frames' power (an equivalent level, common practice) and the
+    // loudest frame, in dBFS (AES17: a full-scale sine is 0 dBFS); frames at the -200 dBFS floor are
+    // digital silence and count as zero power.
+    double power = 0.0;
+    float loudest = -200.0f;
+    for (std::size_t i = 0; i < filled_; ++i) {
+      if (levels_[i] > -200.0f) power += std::pow(10.0, static_cast<double>(levels_[i]) / 10.0);
+      loudest = std::max(loudest, levels_[i]);
+    }
+    if (filled_ > 0 && power > 0.0) {
+      s.level_mean_dbfs = std::round(100.0 * 10.0 * std::log10(power / static_cast<double>(filled_))) / 100.0;
+      s.level_max_dbfs = std::round(100.0 * static_cast<double>(loudest)) / 100.0;
     }
     s.voiced_fraction = round3(s.voiced_fraction);
     // Time inside each band: voiced frames of the window inside it, over voiced frames (docs/measures.md).
@@ -134,6 +152,7 @@ class Forwarder final : public dsp::FrameSink {
   std::atomic<std::int64_t>& frames_;
   PipelineOptions options_;
   std::vector<std::optional<float>> window_;  // ring of the last settled F0 values
+  std::vector<float> levels_;                 // and their levels (dBFS)
   std::size_t next_ = 0, filled_ = 0;
   std::vector<double> scratch_;
   std::int64_t interval_frames_ = 1;

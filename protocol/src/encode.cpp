@@ -150,6 +150,11 @@ Encoded encode(const Stats& m) {
                                             {"f0_p50_hz", or_null(m.f0_p50_hz)},
                                             {"f0_p95_hz", or_null(m.f0_p95_hz)},
                                             {"f0_sd_st", or_null(m.f0_sd_st)},
+                                            {"f0_min_hz", or_null(m.f0_min_hz)},
+                                            {"f0_max_hz", or_null(m.f0_max_hz)},
+                                            {"f0_range_st", or_null(m.f0_range_st)},
+                                            {"level_mean_dbfs", or_null(m.level_mean_dbfs)},
+                                            {"level_max_dbfs", or_null(m.level_max_dbfs)},
                                             {"bands", band_shares(m.bands)}});
 }
 

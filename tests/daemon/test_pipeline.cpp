@@ -237,6 +237,15 @@ TEST(Pipeline, BandCrossingsAndTimeInsideFollowTheVoice) {
       EXPECT_EQ(*st.bands[0].inside_fraction, 1.0) << st.time_s;
       EXPECT_EQ(st.bands[0].state, protocol::BandPosition::kInside) << st.time_s;
       EXPECT_EQ(*st.bands[1].inside_fraction, 0.0) << st.time_s;
+      // A sine of amplitude 0.3 is at 20 log10(0.3) = -10.46 dBFS (AES17: full-scale sine = 0 dBFS), every
+      // frame alike; its F0 is 200 Hz throughout.
+      ASSERT_TRUE(st.level_mean_dbfs && st.level_max_dbfs);
+      EXPECT_NEAR(*st.level_mean_dbfs, 20.0 * std::log10(0.3), 0.05) << st.time_s;
+      EXPECT_NEAR(*st.level_max_dbfs, 20.0 * std::log10(0.3), 0.05) << st.time_s;
+      ASSERT_TRUE(st.f0_min_hz && st.f0_max_hz && st.f0_range_st);
+      EXPECT_NEAR(*st.f0_min_hz, 200.0, 1.0);
+      EXPECT_NEAR(*st.f0_max_hz, 200.0, 1.0);
+      EXPECT_NEAR(*st.f0_range_st, 0.0, 0.05);
       saw_inside = true;
     }
     if (st.time_s > 1.7 && st.time_s < 1.95) {

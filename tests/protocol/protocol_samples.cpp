@@ -106,9 +106,21 @@ int main() {
   settled.f0_hz.reset();
   server(pw::encode_settled(settled));
 
-  pw::Stats stats{30.0, 10.0, 0.0, std::nullopt, std::nullopt, std::nullopt, std::nullopt, {}};
+  pw::Stats stats;
+  stats.time_s = 30.0;
+  stats.window_s = 10.0;
   server(pw::encode(stats));
-  stats = pw::Stats{40.0, 10.0, 0.62, 151.0, 182.5, 240.0, 1.8, {}};
+  stats.time_s = 40.0;
+  stats.voiced_fraction = 0.62;
+  stats.f0_p5_hz = 151.0;
+  stats.f0_p50_hz = 182.5;
+  stats.f0_p95_hz = 240.0;
+  stats.f0_sd_st = 1.8;
+  stats.f0_min_hz = 140.2;
+  stats.f0_max_hz = 262.9;
+  stats.f0_range_st = 8.018;
+  stats.level_mean_dbfs = -23.41;
+  stats.level_max_dbfs = -12.07;
   server(pw::encode(stats));
   stats.bands = {{"target", 0.84, pw::BandPosition::kInside}, {"ceiling", std::nullopt, pw::BandPosition::kUnvoiced}};
   server(pw::encode(stats));

@@ -229,6 +229,11 @@ struct Stats {
   std::optional<double> f0_p50_hz;
   std::optional<double> f0_p95_hz;
   std::optional<double> f0_sd_st;   // SD of F0 in semitones
+  std::optional<double> f0_min_hz;  // lowest and highest voiced F0 of the window
+  std::optional<double> f0_max_hz;
+  std::optional<double> f0_range_st;      // p5-p95 range in semitones
+  std::optional<double> level_mean_dbfs;  // mean power of the window's frames, dBFS; empty when all silent
+  std::optional<double> level_max_dbfs;   // loudest frame, dBFS
   std::vector<BandShare> bands;     // one per active band, in the order they were set
 };
 
