@@ -230,6 +230,18 @@ void Recorder::record_event(const protocol::Event& event) {
     const std::lock_guard lock(mutex_);
     summary_.add_event(protocol::name(event.kind));
     summary_.set_last_time(event.time_s);
+    if (event.kind == protocol::EventKind::kExerciseEnded) {
+      // The exercise's own file: exercise-01-sustained_vowel.json, its summary and when it ended.
+      ++exercises_ended_;
+      std::array<char, 16> n{};
+      std::snprintf(n.data(), n.size(), "%02d", exercises_ended_);
+      const std::string preset = event.payload.value("preset", std::string("exercise"));
+      nlohmann::json file = event.payload;
+      file["ended_s"] = event.time_s;
+      file["ended_wall"] = wall_clock();
+      if (event.by) file["by"] = protocol::name(*event.by);
+      files_.emplace_back(std::string("exercise-") + n.data() + "-" + preset + ".json", file.dump(2) + "\n");
+    }
   }
   // Events are the record of what the supervisor did: never dropped for a full queue.
   push("{\"type\":\"event\",\"wall\":\"" + wall_clock() + "\"" + protocol::encode(event).body, false);
@@ -300,19 +312,24 @@ void Recorder::run() {
   bool stopping = false;
   while (!stopping) {
     std::deque<std::string> lines, rows;
+    std::deque<std::pair<std::string, std::string>> files;
     {
       std::unique_lock lock(mutex_);
       wake_.wait_for(lock, kWakeInterval, [this] { return stop_requested_; });
       stopping = stop_requested_;
       lines.swap(queue_);
       rows.swap(csv_queue_);
+      files.swap(files_);
     }
     if (!log_ && (stopping || Clock::now() - last_try >= kRetryInterval)) {
       last_try = Clock::now();
       open_files();
     }
-    if (!log_) {  // nothing can be written: these lines are lost, and counted
+    if (!log_) {  // nothing can be written: these lines are lost, and counted (an exercise's file is
+      // kept for the next try: its summary is in the events too)
       dropped_.fetch_add(static_cast<std::int64_t>(lines.size()));
+      const std::lock_guard lock(mutex_);
+      files_.insert(files_.begin(), files.begin(), files.end());
       continue;
     }
     if (const std::int64_t dropped = dropped_.load(); dropped > dropped_reported_) {
@@ -328,6 +345,9 @@ void Recorder::run() {
     if (ok && (stopping || Clock::now() - last_flush >= flush_every)) {
       ok = flush_files();
       last_flush = Clock::now();
+    }
+    for (const auto& [name, content] : files) {
+      if (ok && !write_whole(folder_ / name, content)) ok = false;
     }
     if (!ok) {
       const int err = errno;

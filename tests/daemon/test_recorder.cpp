@@ -69,6 +69,10 @@ void record_known_session(Recorder& r) {
   protocol::Mark mark;
   mark.label = "stimulus 1";
   r.record_event(protocol::marker_event(4.0, mark));
+  protocol::Exercise exercise{"sustained_vowel", "first try", 2.5};
+  protocol::Event ended = protocol::exercise_ended_event(5.0, exercise, protocol::Json{{"voiced_s", 2.5}});
+  ended.by = protocol::Role::kSupervisor;
+  r.record_event(ended);
   protocol::Stats stats;
   stats.time_s = 5.0;
   stats.window_s = 5.0;
@@ -93,7 +97,7 @@ TEST(Recorder, WritesAPrivateFolderWithTheLogTheCsvAndASummary) {
   for (const char* name : {"session.jsonl", "frames.csv", "summary.json"}) EXPECT_EQ(mode_of(folder / name), 0600u) << name;
 
   const auto log = lines_of(folder / "session.jsonl");
-  ASSERT_EQ(log.size(), 1u + 1000u + 1u + 1u);
+  ASSERT_EQ(log.size(), 1u + 1000u + 2u + 1u);
   const Json head = Json::parse(log[0]);
   EXPECT_EQ(head["type"], "session");
   EXPECT_EQ(head["format"], "pitchwire.session.v1");
@@ -106,8 +110,18 @@ TEST(Recorder, WritesAPrivateFolderWithTheLogTheCsvAndASummary) {
     stats += j["type"] == "stats";
   }
   EXPECT_EQ(settled, 1000);
-  EXPECT_EQ(events, 1);
+  EXPECT_EQ(events, 2);
   EXPECT_EQ(stats, 1);
+  // The exercise's own file, private, with its summary and who ended it.
+  const fs::path exercise_file = folder / "exercise-01-sustained_vowel.json";
+  ASSERT_TRUE(fs::exists(exercise_file));
+  EXPECT_EQ(mode_of(exercise_file), 0600u);
+  const Json ex = read_json(exercise_file);
+  EXPECT_EQ(ex["preset"], "sustained_vowel");
+  EXPECT_EQ(ex["label"], "first try");
+  EXPECT_DOUBLE_EQ(ex["summary"]["voiced_s"].get<double>(), 2.5);
+  EXPECT_DOUBLE_EQ(ex["ended_s"].get<double>(), 5.0);
+  EXPECT_EQ(ex["by"], "supervisor");
   const Json frame = Json::parse(log[501]);
   EXPECT_EQ(frame["index"], 500);
   EXPECT_DOUBLE_EQ(frame["time_s"].get<double>(), 2.5);
@@ -123,7 +137,8 @@ TEST(Recorder, WritesAPrivateFolderWithTheLogTheCsvAndASummary) {
   EXPECT_EQ(s["closed"], "stopped");
   EXPECT_EQ(s["frames"], 1000);
   EXPECT_DOUBLE_EQ(s["voiced_s"].get<double>(), 2.5);
-  EXPECT_DOUBLE_EQ(s["duration_s"].get<double>(), 4.995);
+  EXPECT_DOUBLE_EQ(s["duration_s"].get<double>(), 5.0);  // the last thing recorded: the exercise ended at 5 s
+  EXPECT_EQ(s["exercises"], 1);
   // The median of 500 frames at 200 Hz, from 10-cent bins: within 5 cents of 200 Hz.
   EXPECT_LT(std::abs(1200.0 * std::log2(s["f0_p50_hz"].get<double>() / 200.0)), 5.0);
   EXPECT_EQ(s["markers"], 1);

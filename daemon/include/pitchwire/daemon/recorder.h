@@ -1,6 +1,7 @@
 // recorder.h: the session record. One folder per daemon run under the sessions folder (mode 0700, files
 // 0600): an append-only JSON-lines log of settled frames, statistics and events, a CSV of the frames for
-// spreadsheets, and a summary written when the session ends (docs/sessions.md).
+// spreadsheets, a file per exercise with its summary, and a summary written when the session ends
+// (docs/sessions.md).
 //
 // Thread contract: construct, start() and stop() on the control thread. record_*() may be called from any
 // thread (the analysis thread for frames and statistics, the network thread for band changes, markers and
@@ -103,6 +104,8 @@ class Recorder {
   std::condition_variable wake_;
   std::deque<std::string> queue_;
   std::deque<std::string> csv_queue_;
+  std::deque<std::pair<std::string, std::string>> files_;  // whole files to write: name, content
+  int exercises_ended_ = 0;
   bool stop_requested_ = false;
   std::atomic<std::int64_t> dropped_{0}, written_{0};
   std::int64_t dropped_reported_ = 0;
