@@ -10,8 +10,10 @@ namespace pitchwire::daemon {
 namespace {
 
 // Measures a preset may list: the members of `stats` (docs/protocol.md) and of an exercise summary.
-const std::set<std::string> kMeasures = {"voiced_fraction", "f0_p5_hz", "f0_p50_hz", "f0_p95_hz", "f0_sd_st",
-                                         "inside_fraction", "voiced_s", "duration_s"};
+const std::set<std::string> kMeasures = {
+    "voiced_fraction", "f0_p5_hz",    "f0_p50_hz",  "f0_p95_hz",       "f0_sd_st",       "f0_min_hz",
+    "f0_max_hz",       "f0_range_st", "inside_fraction", "level_mean_dbfs", "level_max_dbfs", "voiced_s",
+    "settled_s",       "duration_s",  "cycle_dose"};
 constexpr std::size_t kMaxPresets = 32;
 
 }  // namespace
@@ -34,9 +36,9 @@ std::vector<ExercisePreset> load_exercise_presets(const std::filesystem::path& f
   std::vector<ExercisePreset> presets;
   for (const auto& [name, body] : root.items()) {
     const std::string at = where + "preset " + name + ": ";
-    if (name.empty() || name.size() > protocol::kMaxNameChars ||
+    if (name.empty() || name.size() > protocol::kMaxPresetChars ||
         name.find_first_not_of("abcdefghijklmnopqrstuvwxyz0123456789_") != std::string::npos) {
-      throw PresetError(at + "names are 1 to " + std::to_string(protocol::kMaxNameChars) +
+      throw PresetError(at + "names are 1 to " + std::to_string(protocol::kMaxPresetChars) +
                         " characters of a-z, 0-9 and _");
     }
     if (!body.is_object()) throw PresetError(at + "must be an object");

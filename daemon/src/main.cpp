@@ -220,8 +220,13 @@ int run(const pw::DaemonConfig& config) {
     limits.reference_hz = config.reference_hz;
     limits.f0_min_hz = config.f0_min_hz;
     limits.f0_max_hz = config.f0_max_hz;
-    const fs::path presets_file =
-        config.exercises_file.empty() ? fs::path(PITCHWIRE_DEFAULT_EXERCISES) : config.exercises_file;
+    // Default: the source tree's file when built in place, else the installed one.
+    fs::path presets_file = config.exercises_file;
+    if (presets_file.empty()) {
+      std::error_code ec;
+      presets_file = fs::exists(PITCHWIRE_DEFAULT_EXERCISES, ec) ? fs::path(PITCHWIRE_DEFAULT_EXERCISES)
+                                                                   : fs::path(PITCHWIRE_INSTALLED_EXERCISES);
+    }
     options.presets = pw::load_exercise_presets(presets_file, limits);
     spdlog::info("{} exercise presets from {}", options.presets.size(), presets_file.string());
   }
@@ -247,6 +252,12 @@ int run(const pw::DaemonConfig& config) {
   // The session record (docs/sessions.md): unfinished sessions of an earlier run are closed first.
   std::unique_ptr<pw::Recorder> recorder;
   std::unique_ptr<pw::Pipeline> pipeline;
+  // The audio clock as other threads (network, recorder) read it: set once the pipeline has started.
+  std::atomic<const pw::Pipeline*> clock{nullptr};
+  auto audio_now = [&clock] {
+    const pw::Pipeline* p = clock.load(std::memory_order_acquire);
+    return p ? p->audio_time_s() : 0.0;
+  };
   pw::Server* server_for_problems = nullptr;  // set once the server exists; the recorder starts after
   if (config.record_sessions) {
     const fs::path sessions = config.session_dir.empty() ? pw::default_state_dir() / "sessions" : config.session_dir;
@@ -258,7 +269,7 @@ int run(const pw::DaemonConfig& config) {
     recorder_options.source = source->describe();
     recorder_options.hop_ms = config.hop_ms;
     recorder = std::make_unique<pw::Recorder>(
-        recorder_options, [&pipeline, &server_for_problems](const std::string& message, bool resolved) {
+        recorder_options, [audio_now, &server_for_problems](const std::string& message, bool resolved) {
           if (resolved) {
             spdlog::info("{}", message);
           } else {
@@ -266,12 +277,12 @@ int run(const pw::DaemonConfig& config) {
           }
           if (server_for_problems) {
             server_for_problems->on_event(
-                pitchwire::protocol::recording_problem_event(pipeline ? pipeline->audio_time_s() : 0.0, message, resolved));
+                pitchwire::protocol::recording_problem_event(audio_now(), message, resolved));
           }
         });
     options.on_event_sent = [rec = recorder.get()](const pitchwire::protocol::Event& event) { rec->record_event(event); };
   }
-  options.audio_clock = [&pipeline] { return pipeline ? pipeline->audio_time_s() : 0.0; };
+  options.audio_clock = audio_now;
   // The network thread starts in server.start(), after the pipeline exists.
   options.on_bands = [&pipeline](std::vector<pitchwire::protocol::Band> bands) {
     if (pipeline) pipeline->set_bands(std::move(bands));
@@ -304,6 +315,7 @@ int run(const pw::DaemonConfig& config) {
   }
   pipeline = std::make_unique<pw::Pipeline>(ring, *source, pipeline_options, tee);
   pipeline->start();
+  clock.store(pipeline.get(), std::memory_order_release);
   server.start();
 
   const std::string host = config.bind.find(':') != std::string::npos ? "[" + config.bind + "]" : config.bind;

@@ -332,26 +332,55 @@ void Recorder::run() {
       files_.insert(files_.begin(), files.begin(), files.end());
       continue;
     }
+    // Lines lost meanwhile are counted in a gap line; the count is taken as reported only once the line
+    // is on disk (the flush below is forced then).
+    std::int64_t gap_upto = -1;
     if (const std::int64_t dropped = dropped_.load(); dropped > dropped_reported_) {
       lines.push_front("{\"type\":\"gap\",\"wall\":\"" + wall_clock() + "\",\"lines_lost\":" +
                        std::to_string(dropped - dropped_reported_) + "}");
-      dropped_reported_ = dropped;
+      gap_upto = dropped;
     }
+    std::string failed;  // the file that could not be written, and why
+    const std::int64_t data_lines = static_cast<std::int64_t>(lines.size()) - (gap_upto >= 0 ? 1 : 0);
     bool ok = write_out(lines);
+    if (!ok) failed = "session.jsonl: " + std::string(std::strerror(errno));
     for (std::string& row : rows) {
       row.push_back('\n');
-      ok = ok && std::fwrite(row.data(), 1, row.size(), csv_) == row.size();
+      if (ok && std::fwrite(row.data(), 1, row.size(), csv_) != row.size()) {
+        ok = false;
+        failed = "frames.csv: " + std::string(std::strerror(errno));
+      }
     }
-    if (ok && (stopping || Clock::now() - last_flush >= flush_every)) {
+    if (ok) unflushed_ += data_lines;
+    if (ok && (stopping || gap_upto >= 0 || Clock::now() - last_flush >= flush_every)) {
       ok = flush_files();
+      if (!ok) failed = "session.jsonl and frames.csv: " + std::string(std::strerror(errno));
       last_flush = Clock::now();
+      if (ok) {
+        unflushed_ = 0;  // on disk
+        if (gap_upto >= 0) dropped_reported_ = gap_upto;
+      }
     }
+    std::size_t files_written = 0;
     for (const auto& [name, content] : files) {
-      if (ok && !write_whole(folder_ / name, content)) ok = false;
+      if (!ok) break;
+      if (!write_whole(folder_ / name, content)) {
+        ok = false;
+        failed = name + ": " + std::strerror(errno);
+        break;
+      }
+      ++files_written;
     }
     if (!ok) {
-      const int err = errno;
-      problem("session record: cannot write " + (folder_ / "session.jsonl").string() + ": " + std::strerror(err));
+      // Lines still in the stdio buffers are lost with the close below: count them. Files not written are
+      // kept for the next try.
+      dropped_.fetch_add(unflushed_);
+      unflushed_ = 0;
+      {
+        const std::lock_guard lock(mutex_);
+        files_.insert(files_.begin(), files.begin() + static_cast<std::ptrdiff_t>(files_written), files.end());
+      }
+      problem("session record: cannot write " + (folder_ / failed).string());
       close_files();  // reopened (appending) on the next try
       last_try = Clock::now();
       continue;
@@ -389,18 +418,24 @@ std::vector<fs::path> Recorder::close_unfinished(const fs::path& sessions_dir) {
     while (std::getline(in, line)) {
       const nlohmann::json j = nlohmann::json::parse(line, nullptr, false);
       if (j.is_discarded() || !j.is_object()) continue;  // a torn last line
-      const std::string type = j.value("type", "");
-      if (j.contains("wall") && j["wall"].is_string()) last_wall = j["wall"];
+      auto text = [&](const char* key) -> std::string {
+        const auto it = j.find(key);
+        return it != j.end() && it->is_string() ? it->get<std::string>() : std::string();
+      };
+      auto number = [&](const char* key) -> std::optional<double> {
+        const auto it = j.find(key);
+        return it != j.end() && it->is_number() ? std::optional<double>(it->get<double>()) : std::nullopt;
+      };
+      const std::string type = text("type");
+      if (const std::string wall = text("wall"); !wall.empty()) last_wall = wall;
       if (type == "session") {
-        started = j.value("started_wall", "");
-        hop_s = j.value("hop_ms", 5.0) / 1000.0;
-      } else if (type == "settled" && j.contains("time_s") && j["time_s"].is_number()) {
-        const auto& f = j["f0_hz"];
-        summary.add_frame(j["time_s"].get<double>(), f.is_number() ? std::optional<double>(f.get<double>()) : std::nullopt,
-                          hop_s);
-      } else if (type == "event" && j.contains("kind") && j["kind"].is_string()) {
-        summary.add_event(j["kind"].get<std::string>());
-        if (j.contains("time_s") && j["time_s"].is_number()) summary.set_last_time(j["time_s"].get<double>());
+        started = text("started_wall");
+        hop_s = number("hop_ms").value_or(5.0) / 1000.0;
+      } else if (type == "settled") {
+        if (const auto t = number("time_s")) summary.add_frame(*t, number("f0_hz"), hop_s);
+      } else if (type == "event") {
+        summary.add_event(text("kind"));
+        if (const auto t = number("time_s")) summary.set_last_time(*t);
       }
     }
     if (last_wall.empty()) {

@@ -534,7 +534,11 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
                 "exercise \"" + server_->exercise->preset + "\" is running; end it first", r.id});
         return;
       }
-      if (server_->bands.size() + preset->bands.size() > kMaxBands) {
+      const auto added = std::count_if(preset->bands.begin(), preset->bands.end(), [&](const protocol::Band& b) {
+        return std::none_of(server_->bands.begin(), server_->bands.end(),
+                            [&](const protocol::Band& x) { return x.name == b.name; });
+      });
+      if (server_->bands.size() + static_cast<std::size_t>(added) > kMaxBands) {
         refuse({protocol::ErrorCode::kOutOfRange,
                 "exercise \"" + r.preset + "\" sets " + std::to_string(preset->bands.size()) + " bands; at most " +
                     std::to_string(kMaxBands) + " in all: clear some first",
@@ -570,7 +574,8 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
 
   void handle(protocol::EndExercise& r) {
     protocol::Exercise exercise;
-    protocol::Json summary;
+    std::optional<ExerciseSummary> measures;
+    std::vector<std::string> measure_names;
     const double now = server_->now_audio();
     {
       std::lock_guard lock(server_->state_mutex);
@@ -580,11 +585,13 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       }
       exercise = *server_->exercise;
       server_->exercise.reset();
+      // Taken out under the lock, summarised after it: the analysis thread never waits for the sorting.
       const std::lock_guard summary_lock(server_->exercise_mutex);
       server_->exercise_running.store(false);
-      summary = server_->exercise_summary->to_json(now - exercise.started_s, server_->exercise_measures);
-      server_->exercise_summary.reset();
+      measures = std::exchange(server_->exercise_summary, std::nullopt);
+      measure_names = server_->exercise_measures;
     }
+    protocol::Json summary = measures ? measures->to_json(now - exercise.started_s, measure_names) : protocol::Json::object();
     ack(r.id, protocol::ClientType::kEndExercise);
     server_->broadcast_event(by_me(protocol::exercise_ended_event(now, exercise, std::move(summary))));
   }

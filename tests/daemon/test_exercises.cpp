@@ -70,7 +70,7 @@ std::string error_of(const std::string& text) {
 TEST(ExercisePresets, EachMistakeGetsOneLineNamingPresetKeyAndProblem) {
   EXPECT_EQ(error_of(R"({"hum": {"label": "Hum", "colour": "red"}})"),
             "preset hum: colour: unknown key (allowed: label, description, bands, measures)");
-  EXPECT_EQ(error_of(R"({"Hum!": {"label": "Hum"}})"), "preset Hum!: names are 1 to 32 characters of a-z, 0-9 and _");
+  EXPECT_EQ(error_of(R"({"Hum!": {"label": "Hum"}})"), "preset Hum!: names are 1 to 64 characters of a-z, 0-9 and _");
   EXPECT_EQ(error_of(R"({"hum": {"description": "no label"}})"), "preset hum: label: missing");
   EXPECT_NE(error_of(R"({"hum": {"label": "Hum", "bands": [{"name": "t", "low": "H3", "high": "E4"}]}})")
                 .find("preset hum: bands: "),

@@ -108,7 +108,8 @@ class Recorder {
   int exercises_ended_ = 0;
   bool stop_requested_ = false;
   std::atomic<std::int64_t> dropped_{0}, written_{0};
-  std::int64_t dropped_reported_ = 0;
+  std::int64_t dropped_reported_ = 0;  // lost lines a gap line on disk has told of (recorder thread)
+  std::int64_t unflushed_ = 0;         // lines written since the last successful flush (recorder thread)
   SessionSummary summary_;  // under mutex_
   std::thread thread_;
 };
