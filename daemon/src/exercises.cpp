@@ -60,6 +60,7 @@ std::vector<ExercisePreset> load_exercise_presets(const std::filesystem::path& f
             throw PresetError(at + "bands: " + band.dump() + ": " + error->message);
           }
           p.bands.push_back(std::get<protocol::SetBand>(std::get<protocol::Request>(decoded)).band);
+          p.band_requests.push_back(request.dump());
         }
       } else if (key == "measures") {
         if (!value.is_array()) throw PresetError(at + "measures: must be a list of names");

@@ -179,7 +179,7 @@ bool tokens_equal(std::string_view presented, std::string_view expected) {
 class WsSession;
 
 struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
-  explicit Impl(ServerOptions o) : options(std::move(o)), acceptor(ioc) {}
+  explicit Impl(ServerOptions o) : options(std::move(o)), acceptor(ioc), reference_hz(options.hello.reference_hz) {}
 
   ServerOptions options;
   net::io_context ioc;
@@ -212,6 +212,8 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
   std::vector<protocol::Band> exercise_bands;
   std::vector<std::string> exercise_measures;
   std::atomic<bool> exercise_running{false};
+  // The reference pitch for semitone limits: set_reference changes it (network thread only).
+  double reference_hz = 0.0;
   void mirror_bands(const std::vector<protocol::Band>& now) {
     const std::lock_guard lock(exercise_mutex);
     exercise_bands = now;
@@ -356,6 +358,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     }
     server_->add_session(shared_from_this());
     protocol::Hello hello = server_->options.hello;
+    hello.reference_hz = server_->reference_hz;
     hello.role = role_;
     hello.max_message_bytes = server_->options.max_message_bytes;
     {
@@ -412,7 +415,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     using protocol::ErrorCode;
     protocol::DecodeOptions decode_options;
     decode_options.max_message_bytes = server_->options.max_message_bytes;
-    decode_options.reference_hz = server_->options.hello.reference_hz;
+    decode_options.reference_hz = server_->reference_hz;
     decode_options.f0_min_hz = server_->options.hello.f0_min_hz;
     decode_options.f0_max_hz = server_->options.hello.f0_max_hz;
     // Every message costs a token before it is parsed: malformed ones must not be a way around the
@@ -434,7 +437,8 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     const protocol::ClientType type = protocol::type_of(request);
     const bool needs_supervisor = type == protocol::ClientType::kSetBand || type == protocol::ClientType::kClearBand ||
                                   type == protocol::ClientType::kStartExercise ||
-                                  type == protocol::ClientType::kEndExercise;
+                                  type == protocol::ClientType::kEndExercise ||
+                                  type == protocol::ClientType::kSetReference;
     if (needs_supervisor && role_ != protocol::Role::kSupervisor) {
       refuse({ErrorCode::kForbidden,
               std::string(protocol::name(type)) + " needs the supervisor role; this connection is " +
@@ -458,6 +462,12 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     decimation_ = protocol::decimation(r.rate, server_->options.hello.hop_ms);
     server_->field_set_users[fields_.bits()].fetch_add(1);
     send_own(protocol::encode(protocol::subscribe_ack(r, server_->options.hello.hop_ms)));
+  }
+
+  void handle(protocol::SetReference& r) {
+    server_->reference_hz = r.reference_hz;
+    ack(r.id, protocol::ClientType::kSetReference);
+    server_->broadcast_event(by_me(protocol::reference_changed_event(server_->now_audio(), r.reference_hz)));
   }
 
   void handle(protocol::Ping& r) {
@@ -525,6 +535,22 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       refuse({protocol::ErrorCode::kUnknownPreset, "no exercise preset \"" + r.preset + "\"; known: " + known, r.id});
       return;
     }
+    // The preset's bands, decoded now: semitone limits follow the reference as it is at the start.
+    std::vector<protocol::Band> preset_bands;
+    {
+      protocol::DecodeOptions limits;
+      limits.reference_hz = server_->reference_hz;
+      limits.f0_min_hz = server_->options.hello.f0_min_hz;
+      limits.f0_max_hz = server_->options.hello.f0_max_hz;
+      for (const std::string& text : preset->band_requests) {
+        const auto decoded = protocol::decode_request(text, limits);
+        if (const auto* error = std::get_if<protocol::Error>(&decoded)) {
+          refuse({error->code, "exercise \"" + r.preset + "\": its band " + text + ": " + error->message, r.id});
+          return;
+        }
+        preset_bands.push_back(std::get<protocol::SetBand>(std::get<protocol::Request>(decoded)).band);
+      }
+    }
     protocol::Exercise exercise{r.preset, r.label, server_->now_audio()};
     std::vector<protocol::Band> bands;
     {
@@ -534,19 +560,19 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
                 "exercise \"" + server_->exercise->preset + "\" is running; end it first", r.id});
         return;
       }
-      const auto added = std::count_if(preset->bands.begin(), preset->bands.end(), [&](const protocol::Band& b) {
+      const auto added = std::count_if(preset_bands.begin(), preset_bands.end(), [&](const protocol::Band& b) {
         return std::none_of(server_->bands.begin(), server_->bands.end(),
                             [&](const protocol::Band& x) { return x.name == b.name; });
       });
       if (server_->bands.size() + static_cast<std::size_t>(added) > kMaxBands) {
         refuse({protocol::ErrorCode::kOutOfRange,
-                "exercise \"" + r.preset + "\" sets " + std::to_string(preset->bands.size()) + " bands; at most " +
+                "exercise \"" + r.preset + "\" sets " + std::to_string(preset_bands.size()) + " bands; at most " +
                     std::to_string(kMaxBands) + " in all: clear some first",
                 r.id});
         return;
       }
       // The preset's bands replace bands of the same name.
-      for (const protocol::Band& b : preset->bands) {
+      for (const protocol::Band& b : preset_bands) {
         auto it = std::find_if(server_->bands.begin(), server_->bands.end(),
                                [&](const protocol::Band& x) { return x.name == b.name; });
         if (it != server_->bands.end()) {
@@ -564,9 +590,9 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       server_->exercise_running.store(true);
     }
     ack(r.id, protocol::ClientType::kStartExercise);
-    if (!preset->bands.empty()) {
+    if (!preset_bands.empty()) {
       if (server_->options.on_bands) server_->options.on_bands(bands);
-      for (const protocol::Band& b : preset->bands)
+      for (const protocol::Band& b : preset_bands)
         server_->broadcast_event(by_me(protocol::band_changed_event(exercise.started_s, b.name, bands)));
     }
     server_->broadcast_event(by_me(protocol::exercise_started_event(exercise.started_s, exercise)));

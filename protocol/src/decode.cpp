@@ -344,6 +344,11 @@ Decoded decode_body(ClientType type, const std::string& id, Reader& r, const Dec
     case ClientType::kPing:
       r.only({"type", "id"});
       return done(Ping{id});
+    case ClientType::kSetReference: {
+      r.only({"type", "id", "reference"});
+      SetReference s{id, r.limit("reference", options).value_or(0.0)};
+      return done(std::move(s));
+    }
   }
   return Error{ErrorCode::kInternal, "unhandled request type", id};
 }

@@ -202,6 +202,8 @@ std::string encode_request(const Request& request) {
   } else if (const auto* m = std::get_if<Mark>(&request)) {
     j["label"] = m->label;
     if (m->data.is_object()) j["data"] = m->data;
+  } else if (const auto* ref = std::get_if<SetReference>(&request)) {
+    j["reference"] = ref->reference_hz;
   }
   return j.dump(-1, ' ', false, Json::error_handler_t::replace);
 }

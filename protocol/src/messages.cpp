@@ -107,6 +107,10 @@ Event dropped_frames_event(double time_s, std::int64_t count) {
   return event(EventKind::kDroppedFrames, time_s, Json{{"count", count}});
 }
 
+Event reference_changed_event(double time_s, double reference_hz) {
+  return event(EventKind::kReferenceChanged, time_s, Json{{"reference_hz", reference_hz}});
+}
+
 Event recording_problem_event(double time_s, std::string_view message, bool resolved) {
   return event(EventKind::kRecordingProblem, time_s, Json{{"message", message}, {"resolved", resolved}});
 }

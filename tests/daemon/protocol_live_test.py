@@ -859,6 +859,33 @@ async def test_requests(ctx):
     err = await sup.request({"type": "end_exercise", "id": "x-4"})
     check("end_exercise again -> no_exercise", err and err.get("code") == "no_exercise", ref + " end_exercise", short(err))
 
+    # the reference pitch
+    err = await obs.request({"type": "set_reference", "id": "r-obs", "reference": "G3"})
+    check("set_reference from observer -> forbidden", err and err.get("code") == "forbidden", ref + " roles", short(err))
+    m0 = len(mon.msgs)
+    ack = await sup.request({"type": "set_reference", "id": "r-1", "reference": "G3"})
+    ev = await mon.wait(lambda m: m.get("type") == "event" and m.get("kind") == "reference_changed", 3, m0)
+    check("set_reference G3 -> ack and reference_changed 195.998 Hz by supervisor (G3 = 440 * 2^(-14/12))",
+          ack and ack.get("type") == "ack" and ev and abs(ev["payload"]["reference_hz"] - 195.998) < 0.001
+          and ev.get("by") == "supervisor", "docs/protocol.md set_reference; ISO 16 (A4 = 440 Hz)", short(ev))
+    late = await ctx.open("late observer 3")
+    h = await ctx.hello_of(late)
+    check("a new connection's hello shows the new reference", h and abs(h.get("reference_hz", 0) - 195.998) < 0.001,
+          ref + " hello.reference_hz", short(h and h.get("reference_hz")))
+    await late.close()
+    m0 = len(mon.msgs)
+    await sup.request({"type": "start_exercise", "id": "x-5", "preset": "sustained_vowel"})
+    bev = await mon.wait(lambda m: m.get("type") == "event" and m.get("kind") == "band_changed"
+                         and m["payload"].get("name") == "target", 3, m0)
+    target = next((b for b in (bev or {}).get("payload", {}).get("bands", []) if b.get("name") == "target"), None)
+    check("a preset started after set_reference follows it: -1st..+1st around 195.998 Hz = 184.997..207.652 Hz",
+          target and abs(target["low_hz"] - 184.997) < 0.01 and abs(target["high_hz"] - 207.652) < 0.01,
+          "config/exercises.jsonc; 195.998 * 2^(+-1/12)", short(bev))
+    await sup.request({"type": "end_exercise", "id": "x-6"})
+    err = await sup.request({"type": "set_reference", "id": "r-2", "reference": "A0"})
+    check("set_reference below the search range -> bad_band", err and err.get("code") == "bad_band", ref + " set_reference",
+          short(err))
+
 
 async def test_bad_input(ctx):
     ref = "docs/protocol.md error codes"

@@ -52,7 +52,7 @@ class Fixture : public ::testing::Test {
     o.request_burst = 10;
     o.supervisor_token = std::string(kSupervisorToken);
     o.lab_token = std::string(kLabToken);
-    o.presets = {pitchwire::daemon::ExercisePreset{"sustained_vowel", "Sustained vowel", "", {}, {}}};
+    o.presets = {pitchwire::daemon::ExercisePreset{"sustained_vowel", "Sustained vowel", "", {}, {}, {}}};
     o.hello.server_version = "test";
     o.hello.hop_ms = 5.0;
     o.hello.settle_ms = 60.0;

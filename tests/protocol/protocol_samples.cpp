@@ -145,6 +145,11 @@ int main() {
            {"bands", Json::array({Json{{"name", "target"}, {"inside_fraction", 0.912}}})},
            {"measures", Json::array({"f0_sd_st", "voiced_s", "inside_fraction"})}})));
   server(pw::encode(pw::dropped_frames_event(36.0, 17)));
+  {
+    pw::Event reference = pw::reference_changed_event(38.0, 195.998);
+    reference.by = pw::Role::kSupervisor;
+    server(pw::encode(reference));
+  }
   server(pw::encode(pw::recording_problem_event(40.0, "session record: cannot write /home/coach/.local/state/pitchwire/sessions/20261202T101500Z/session.jsonl: No space left on device", false)));
   server(pw::encode(pw::recording_problem_event(52.0, "session record: writing again", true)));
   server(pw::encode(pw::Error{pw::ErrorCode::kForbidden, "set_band: needs the supervisor role", "b1"}));
@@ -166,6 +171,8 @@ int main() {
       {R"({"type":"mark","id":"m1","label":"trial 12 onset"})"},
       {R"({"type":"mark","id":"m2","label":"stimulus ✓","data":{"trial":12,"condition":"loud","t":[0.5,1]}})"},
       {R"({"type":"ping","id":"p1"})"},
+      {R"({"type":"set_reference","id":"r1","reference":"G3"})"},
+      {R"({"type":"set_reference","id":"r2","reference":180.5})"},
       // Bad samples: one or more for every code the decoder gives.
       {R"({"type":"ping","id":"p")"},
       {R"([1,2])"},

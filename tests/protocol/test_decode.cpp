@@ -45,12 +45,30 @@ TEST(ProtocolDecode, EveryRequestRoundTrips) {
       Mark{"m1", "trial 12 onset", Json{{"trial", 12}, {"condition", "loud"}, {"nested", {{"a", {1, 2}}}}}},
       Mark{"m2", "täst ✓", nullptr},
       Ping{"p1"},
+      SetReference{"r1", 195.5},
   };
   for (const auto& request : requests) {
     const std::string text = encode_request(request);
     SCOPED_TRACE(text);
     EXPECT_EQ(decoded_ok(text), request);
   }
+}
+
+// The reference as a number in Hz, a note name (G3 = 440 * 2^(-14/12) = 195.998 Hz, A4 = 440 Hz) or semitones
+// re the current reference (+12 st re 100 Hz = 200 Hz); outside the search range it is refused.
+TEST(ProtocolDecode, SetReferenceTakesHzNotesAndSemitonesReTheCurrentOne) {
+  EXPECT_DOUBLE_EQ(std::get<SetReference>(decoded_ok(R"({"type":"set_reference","id":"r","reference":180})")).reference_hz,
+                   180.0);
+  EXPECT_NEAR(std::get<SetReference>(decoded_ok(R"({"type":"set_reference","id":"r","reference":"G3"})")).reference_hz,
+              195.998, 0.001);
+  EXPECT_NEAR(std::get<SetReference>(decoded_ok(R"({"type":"set_reference","id":"r","reference":"+12st"})")).reference_hz,
+              200.0, 1e-9);
+  const auto low = decode_request(R"({"type":"set_reference","id":"r","reference":"A0"})");
+  ASSERT_TRUE(std::holds_alternative<Error>(low));
+  EXPECT_EQ(std::get<Error>(low).code, ErrorCode::kBadBand);
+  const auto none = decode_request(R"({"type":"set_reference","id":"r"})");
+  ASSERT_TRUE(std::holds_alternative<Error>(none));
+  EXPECT_EQ(std::get<Error>(none).code, ErrorCode::kMissingField);
 }
 
 TEST(ProtocolDecode, SubscribeDefaultsAndRateForms) {

@@ -22,7 +22,9 @@ struct ExercisePreset {
   std::string name;                    // what start_exercise names
   std::string label;                   // for people
   std::string description;
-  std::vector<protocol::Band> bands;   // set when the exercise starts (limits in Hz)
+  std::vector<protocol::Band> bands;   // checked at load, limits in Hz against the configured reference
+  std::vector<std::string> band_requests;  // the same as set_band requests, decoded again at each start
+                                           // (semitone limits follow the reference of that moment)
   std::vector<std::string> measures;   // the measures that matter for it (names of stats members)
 };
 

@@ -39,12 +39,12 @@ inline constexpr double kMaxFps = 1000.0;            // highest frame rate a sub
 
 enum class ServerType : std::uint8_t { kHello, kFrame, kSettled, kStats, kEvent, kError, kPong, kAck };
 enum class ClientType : std::uint8_t {
-  kSubscribe, kSetBand, kClearBand, kStartExercise, kEndExercise, kMark, kPing
+  kSubscribe, kSetBand, kClearBand, kStartExercise, kEndExercise, kMark, kPing, kSetReference
 };
 enum class Role : std::uint8_t { kObserver, kLab, kSupervisor };
 enum class EventKind : std::uint8_t {
   kOverflow, kDeviceLost, kDeviceBack, kBandChanged, kBandCrossing,
-  kExerciseStarted, kExerciseEnded, kMarker, kDroppedFrames, kRecordingProblem
+  kExerciseStarted, kExerciseEnded, kMarker, kDroppedFrames, kRecordingProblem, kReferenceChanged
 };
 enum class BandPosition : std::uint8_t { kBelow, kInside, kAbove, kUnvoiced };
 
@@ -58,12 +58,12 @@ enum class ErrorCode : std::uint8_t {
 
 inline constexpr std::array<std::string_view, 8> kServerTypeNames = {
     "hello", "frame", "settled", "stats", "event", "error", "pong", "ack"};
-inline constexpr std::array<std::string_view, 7> kClientTypeNames = {
-    "subscribe", "set_band", "clear_band", "start_exercise", "end_exercise", "mark", "ping"};
+inline constexpr std::array<std::string_view, 8> kClientTypeNames = {
+    "subscribe", "set_band", "clear_band", "start_exercise", "end_exercise", "mark", "ping", "set_reference"};
 inline constexpr std::array<std::string_view, 3> kRoleNames = {"observer", "lab", "supervisor"};
-inline constexpr std::array<std::string_view, 10> kEventKindNames = {
+inline constexpr std::array<std::string_view, 11> kEventKindNames = {
     "overflow", "device_lost", "device_back", "band_changed", "band_crossing",
-    "exercise_started", "exercise_ended", "marker", "dropped_frames", "recording_problem"};
+    "exercise_started", "exercise_ended", "marker", "dropped_frames", "recording_problem", "reference_changed"};
 inline constexpr std::array<std::string_view, 4> kBandPositionNames = {"below", "inside", "above", "unvoiced"};
 inline constexpr std::array<std::string_view, 17> kErrorCodeNames = {
     "bad_json", "not_an_object", "unknown_type", "unknown_field", "missing_field", "wrong_type",
@@ -185,7 +185,13 @@ struct Ping {
   friend bool operator==(const Ping&, const Ping&) = default;
 };
 
-using Request = std::variant<Subscribe, SetBand, ClearBand, StartExercise, EndExercise, Mark, Ping>;
+struct SetReference {  // converted to Hz (semitones re the current reference) and checked against the range
+  std::string id;
+  double reference_hz = 0.0;
+  friend bool operator==(const SetReference&, const SetReference&) = default;
+};
+
+using Request = std::variant<Subscribe, SetBand, ClearBand, StartExercise, EndExercise, Mark, Ping, SetReference>;
 
 [[nodiscard]] ClientType type_of(const Request& request);
 [[nodiscard]] const std::string& id_of(const Request& request);
@@ -256,6 +262,8 @@ struct Event {
 [[nodiscard]] Event exercise_ended_event(double time_s, const Exercise& exercise, Json summary);
 [[nodiscard]] Event marker_event(double time_s, const Mark& mark);
 [[nodiscard]] Event dropped_frames_event(double time_s, std::int64_t count);
+// The reference pitch (semitone limits and presets' semitone bands are relative to it) is now reference_hz.
+[[nodiscard]] Event reference_changed_event(double time_s, double reference_hz);
 // The session record cannot be written (or can again: resolved = true); the live stream goes on.
 [[nodiscard]] Event recording_problem_event(double time_s, std::string_view message, bool resolved);
 
