@@ -19,6 +19,8 @@
 #include <array>
 #include <atomic>
 #include <chrono>
+#include <cstdio>
+#include <ctime>
 #include <deque>
 #include <future>
 #include <mutex>
@@ -61,6 +63,20 @@ constexpr auto kCloseGrace = std::chrono::milliseconds(500);
 // A client that keeps sending after this many refused requests in a row is closed (1008).
 constexpr int kMaxRefusedInARow = 100;
 constexpr std::size_t kMaxBands = 16;
+
+// UTC wall clock, ISO 8601 with milliseconds ("2026-12-02T10:15:00.250Z").
+std::string wall_clock_utc() {
+  const auto now = std::chrono::system_clock::now();
+  const std::time_t t = std::chrono::system_clock::to_time_t(now);
+  std::tm tm{};
+  gmtime_r(&t, &tm);
+  std::array<char, 32> buf{};
+  std::strftime(buf.data(), buf.size(), "%Y-%m-%dT%H:%M:%S", &tm);
+  const auto ms = std::chrono::duration_cast<std::chrono::milliseconds>(now.time_since_epoch()).count() % 1000;
+  std::array<char, 48> out{};
+  std::snprintf(out.data(), out.size(), "%s.%03dZ", buf.data(), static_cast<int>(ms));
+  return out.data();
+}
 constexpr std::chrono::milliseconds kAcceptRetry{200};
 constexpr std::size_t kOversizeFactor = 4;
 // Kernel send buffer per WebSocket (Linux doubles it): about 1 s of frames at full rate with every field.
@@ -476,8 +492,12 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
   }
 
   void handle(protocol::Mark& r) {
-    protocol::Event event = protocol::marker_event(server_->now_audio(), r);
+    const double now = server_->now_audio();
+    protocol::Event event = protocol::marker_event(now, r);
     event.by = role_;
+    // Stamped on the audio clock as a sample index of the input too, and on the wall clock.
+    event.payload["sample"] = static_cast<std::int64_t>(std::llround(now * server_->options.hello.audio.sample_rate_hz));
+    event.payload["wall"] = wall_clock_utc();
     ack(r.id, protocol::ClientType::kMark);
     server_->broadcast_event(event);
   }

@@ -749,8 +749,12 @@ async def test_requests(ctx):
     ack = await lab.request({"type": "mark", "id": "m-1", "label": "trial 12 onset", "data": data})
     check("mark from lab -> ack", ack and ack.get("type") == "ack" and ack.get("request") == "mark", ref + " mark", short(ack))
     marker = await mon.wait(lambda m: m.get("type") == "event" and m.get("kind") == "marker", 3, m0)
-    check("the marker event reaches an observer with id, label and data as sent", marker and marker["payload"] ==
+    check("the marker event reaches an observer with id, label and data as sent", marker and
+          {k: v for k, v in marker["payload"].items() if k not in ("sample", "wall")} ==
           {"id": "m-1", "label": "trial 12 onset", "data": data}, ref + " mark and event marker", short(marker))
+    check("the marker is stamped with its input sample index (time_s x 16 kHz) and the wall clock",
+          marker and marker["payload"].get("sample") == round(marker["time_s"] * 16000)
+          and str(marker["payload"].get("wall", "")).endswith("Z"), ref + " event marker", short(marker))
     ack2 = await sup.request({"type": "mark", "id": "m-2", "label": "no data"})
     check("mark from supervisor -> ack", ack2 and ack2.get("type") == "ack", ref + " mark: lab and supervisor", short(ack2))
     err = await obs.request({"type": "mark", "id": "m-3", "label": "not allowed"})

@@ -125,6 +125,11 @@ def main():
         check("the marker is in the log with its wall clock and who added it (by lab)",
               len(markers) == 1 and markers[0]["payload"]["label"] == "probe tone 1" and "wall" in markers[0]
               and markers[0].get("by") == "lab", str(markers))
+        if markers:
+            pl = markers[0]["payload"]
+            check("the marker is stamped with the input sample index of its time (16 kHz demo voice) and the wall clock",
+                  pl.get("sample") == round(markers[0]["time_s"] * 16000) and isinstance(pl.get("wall"), str)
+                  and pl["wall"].endswith("Z"), str(pl))
         check("the log's first line says what it is", log and log[0].get("type") == "session"
               and log[0].get("format") == "pitchwire.session.v1", str(log[:1]))
 
