@@ -18,6 +18,22 @@ constexpr std::size_t kMaxPresets = 32;
 
 }  // namespace
 
+std::optional<protocol::Error> decode_preset_bands(const ExercisePreset& preset, const protocol::DecodeOptions& limits,
+                                                  std::vector<protocol::Band>& bands) {
+  bands.clear();
+  for (const std::string& text : preset.band_requests) {
+    // Checked as a set_band request is: the same limits, notes, semitones and search range.
+    const auto decoded = protocol::decode_request(text, limits);
+    if (const auto* error = std::get_if<protocol::Error>(&decoded)) {
+      protocol::Error named = *error;
+      named.message = text + ": " + error->message;
+      return named;
+    }
+    bands.push_back(std::get<protocol::SetBand>(std::get<protocol::Request>(decoded)).band);
+  }
+  return std::nullopt;
+}
+
 std::vector<ExercisePreset> load_exercise_presets(const std::filesystem::path& file,
                                                   const protocol::DecodeOptions& limits) {
   const std::string where = file.string() + ": ";
@@ -51,17 +67,12 @@ std::vector<ExercisePreset> load_exercise_presets(const std::filesystem::path& f
       } else if (key == "bands") {
         if (!value.is_array()) throw PresetError(at + "bands: must be a list of {name, low, high}");
         for (const auto& band : value) {
-          // Checked as a set_band request is: the same limits, notes, semitones and search range.
           nlohmann::ordered_json request = band.is_object() ? band : nlohmann::ordered_json::object();
           request["type"] = "set_band";
           request["id"] = "preset";
-          const auto decoded = protocol::decode_request(request.dump(), limits);
-          if (const auto* error = std::get_if<protocol::Error>(&decoded)) {
-            throw PresetError(at + "bands: " + band.dump() + ": " + error->message);
-          }
-          p.bands.push_back(std::get<protocol::SetBand>(std::get<protocol::Request>(decoded)).band);
           p.band_requests.push_back(request.dump());
         }
+        if (const auto error = decode_preset_bands(p, limits, p.bands)) throw PresetError(at + "bands: " + error->message);
       } else if (key == "measures") {
         if (!value.is_array()) throw PresetError(at + "measures: must be a list of names");
         for (const auto& m : value) {

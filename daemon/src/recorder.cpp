@@ -32,22 +32,7 @@ constexpr double kHistLowHz = 20.0;
 constexpr double kHistBinCents = 10.0;
 constexpr std::size_t kHistBins = 1000;  // 20 Hz .. 20 * 2^(10000/1200) = 6.4 kHz
 
-// UTC wall clock, ISO 8601 with milliseconds ("2026-12-02T10:15:00.250Z"); `compact` gives the folder
-// name form ("20261202T101500Z").
-std::string wall_clock(bool compact = false) {
-  const auto now = std::chrono::system_clock::now();
-  const std::time_t t = std::chrono::system_clock::to_time_t(now);
-  std::tm tm{};
-  gmtime_r(&t, &tm);
-  std::array<char, 40> buf{};
-  if (compact) {
-    std::strftime(buf.data(), buf.size(), "%Y%m%dT%H%M%SZ", &tm);
-    return buf.data();
-  }
-  std::strftime(buf.data(), buf.size(), "%Y-%m-%dT%H:%M:%S", &tm);
-  const auto ms = std::chrono::duration_cast<std::chrono::milliseconds>(now.time_since_epoch()).count() % 1000;
-  return std::string(buf.data()) + "." + (ms < 100 ? (ms < 10 ? "00" : "0") : "") + std::to_string(ms) + "Z";
-}
+std::string wall_clock(bool compact = false) { return utc_wall_clock(std::chrono::system_clock::now(), compact); }
 
 // Fixed decimals per quantity, as the frames on the wire: times to 0.1 ms (whatever the session's length),
 // F0 to 0.001 Hz, voicing and confidence to 0.0001, levels to 0.01 dB; absent as null (JSON) or empty (CSV).
@@ -105,6 +90,22 @@ bool write_whole(const fs::path& path, const std::string& text) {
 }
 
 }  // namespace
+
+std::string utc_wall_clock(std::chrono::system_clock::time_point when, bool compact) {
+  const std::time_t t = std::chrono::system_clock::to_time_t(when);
+  std::tm tm{};
+  gmtime_r(&t, &tm);
+  std::array<char, 40> buf{};
+  if (compact) {
+    std::strftime(buf.data(), buf.size(), "%Y%m%dT%H%M%SZ", &tm);
+    return buf.data();
+  }
+  std::strftime(buf.data(), buf.size(), "%Y-%m-%dT%H:%M:%S", &tm);
+  const auto ms = std::chrono::duration_cast<std::chrono::milliseconds>(when.time_since_epoch()).count() % 1000;
+  std::array<char, 48> out{};
+  std::snprintf(out.data(), out.size(), "%s.%03dZ", buf.data(), static_cast<int>(ms));
+  return out.data();
+}
 
 // ---- SessionSummary ----------------------------------------------------------------------------------
 
@@ -441,14 +442,8 @@ std::vector<fs::path> Recorder::close_unfinished(const fs::path& sessions_dir) {
     if (last_wall.empty()) {
       // The log's last change stands in for the end.
       const auto t = fs::last_write_time(dir / "session.jsonl", ec);
-      const auto sys = std::chrono::time_point_cast<std::chrono::system_clock::duration>(
-          t - fs::file_time_type::clock::now() + std::chrono::system_clock::now());
-      const std::time_t tt = std::chrono::system_clock::to_time_t(sys);
-      std::tm tm{};
-      gmtime_r(&tt, &tm);
-      std::array<char, 40> buf{};
-      std::strftime(buf.data(), buf.size(), "%Y-%m-%dT%H:%M:%SZ", &tm);
-      last_wall = buf.data();
+      last_wall = utc_wall_clock(std::chrono::time_point_cast<std::chrono::system_clock::duration>(
+          t - fs::file_time_type::clock::now() + std::chrono::system_clock::now()));
     }
     if (write_whole(dir / "summary.json", summary.to_json("recovered", last_wall, started))) closed.push_back(dir);
   }

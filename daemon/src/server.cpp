@@ -14,13 +14,12 @@
 //                     across I/O, because other threads read it for exercise summaries.
 #include "pitchwire/daemon/server.h"
 #include "pitchwire/daemon/exercise_summary.h"
+#include "pitchwire/daemon/recorder.h"
 
 #include <algorithm>
 #include <array>
 #include <atomic>
 #include <chrono>
-#include <cstdio>
-#include <ctime>
 #include <deque>
 #include <future>
 #include <mutex>
@@ -63,20 +62,6 @@ constexpr auto kCloseGrace = std::chrono::milliseconds(500);
 // A client that keeps sending after this many refused requests in a row is closed (1008).
 constexpr int kMaxRefusedInARow = 100;
 constexpr std::size_t kMaxBands = 16;
-
-// UTC wall clock, ISO 8601 with milliseconds ("2026-12-02T10:15:00.250Z").
-std::string wall_clock_utc() {
-  const auto now = std::chrono::system_clock::now();
-  const std::time_t t = std::chrono::system_clock::to_time_t(now);
-  std::tm tm{};
-  gmtime_r(&t, &tm);
-  std::array<char, 32> buf{};
-  std::strftime(buf.data(), buf.size(), "%Y-%m-%dT%H:%M:%S", &tm);
-  const auto ms = std::chrono::duration_cast<std::chrono::milliseconds>(now.time_since_epoch()).count() % 1000;
-  std::array<char, 48> out{};
-  std::snprintf(out.data(), out.size(), "%s.%03dZ", buf.data(), static_cast<int>(ms));
-  return out.data();
-}
 constexpr std::chrono::milliseconds kAcceptRetry{200};
 constexpr std::size_t kOversizeFactor = 4;
 // Kernel send buffer per WebSocket (Linux doubles it): about 1 s of frames at full rate with every field.
@@ -242,6 +227,11 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
   void broadcast(const protocol::Encoded& message);  // network thread
   void deliver_all(const std::shared_ptr<const SharedMessage>& shared);
   void post_broadcast(protocol::Encoded message);     // any thread: encoded here, sent by the network thread
+  // Any thread: an event for everyone, handed to the session record (on_event_sent) and posted.
+  void post_event(const protocol::Event& event) {
+    if (options.on_event_sent) options.on_event_sent(event);
+    post_broadcast(protocol::encode(event));
+  }
   void broadcast_event(const protocol::Event& event) {
     if (options.on_event_sent) options.on_event_sent(event);
     broadcast(protocol::encode(event));
@@ -497,7 +487,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
     event.by = role_;
     // Stamped on the audio clock as a sample index of the input too, and on the wall clock.
     event.payload["sample"] = static_cast<std::int64_t>(std::llround(now * server_->options.hello.audio.sample_rate_hz));
-    event.payload["wall"] = wall_clock_utc();
+    event.payload["wall"] = utc_wall_clock(std::chrono::system_clock::now());
     ack(r.id, protocol::ClientType::kMark);
     server_->broadcast_event(event);
   }
@@ -562,13 +552,9 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       limits.reference_hz = server_->reference_hz;
       limits.f0_min_hz = server_->options.hello.f0_min_hz;
       limits.f0_max_hz = server_->options.hello.f0_max_hz;
-      for (const std::string& text : preset->band_requests) {
-        const auto decoded = protocol::decode_request(text, limits);
-        if (const auto* error = std::get_if<protocol::Error>(&decoded)) {
-          refuse({error->code, "exercise \"" + r.preset + "\": its band " + text + ": " + error->message, r.id});
-          return;
-        }
-        preset_bands.push_back(std::get<protocol::SetBand>(std::get<protocol::Request>(decoded)).band);
+      if (const auto error = decode_preset_bands(*preset, limits, preset_bands)) {
+        refuse({error->code, "exercise \"" + r.preset + "\": its band " + error->message, r.id});
+        return;
       }
     }
     protocol::Exercise exercise{r.preset, r.label, server_->now_audio()};
@@ -1203,8 +1189,7 @@ void Server::on_event(const protocol::Event& event) {
   } else {
     spdlog::debug("{} at {:.3f} s: {}", protocol::name(event.kind), event.time_s, event.payload.dump());
   }
-  if (impl_->options.on_event_sent) impl_->options.on_event_sent(event);
-  impl_->post_broadcast(protocol::encode(event));
+  impl_->post_event(event);
 }
 
 void Server::on_end() {
@@ -1213,16 +1198,12 @@ void Server::on_end() {
 
 void Server::on_device_lost(const std::string& device, const std::string& reason) {
   spdlog::error("audio input {} lost: {}", device, reason);
-  const protocol::Event event = protocol::device_lost_event(impl_->now_audio(), device, reason);
-  if (impl_->options.on_event_sent) impl_->options.on_event_sent(event);
-  impl_->post_broadcast(protocol::encode(event));
+  impl_->post_event(protocol::device_lost_event(impl_->now_audio(), device, reason));
 }
 
 void Server::on_device_back(const std::string& device) {
   spdlog::info("audio input {} is back", device);
-  const protocol::Event event = protocol::device_back_event(impl_->now_audio(), device);
-  if (impl_->options.on_event_sent) impl_->options.on_event_sent(event);
-  impl_->post_broadcast(protocol::encode(event));
+  impl_->post_event(protocol::device_back_event(impl_->now_audio(), device));
 }
 
 }  // namespace pitchwire::daemon

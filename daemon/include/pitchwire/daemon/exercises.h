@@ -9,6 +9,7 @@
 #pragma once
 
 #include <filesystem>
+#include <optional>
 #include <stdexcept>
 #include <string>
 #include <vector>
@@ -33,6 +34,12 @@ class PresetError : public std::runtime_error {
  public:
   using std::runtime_error::runtime_error;
 };
+
+// The bands of `preset` decoded against `limits` (the reference and search range of that moment), as
+// set_band requests are. Returns the first error, with the band's text in its message, if one is refused.
+[[nodiscard]] std::optional<protocol::Error> decode_preset_bands(const ExercisePreset& preset,
+                                                                const protocol::DecodeOptions& limits,
+                                                                std::vector<protocol::Band>& bands);
 
 // Reads and checks every preset of `file`. limits: reference and search range for the band limits.
 [[nodiscard]] std::vector<ExercisePreset> load_exercise_presets(const std::filesystem::path& file,

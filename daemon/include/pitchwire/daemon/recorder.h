@@ -14,6 +14,7 @@
 #pragma once
 
 #include <atomic>
+#include <chrono>
 #include <condition_variable>
 #include <cstdint>
 #include <cstdio>
@@ -30,6 +31,10 @@
 #include "pitchwire/protocol/messages.h"
 
 namespace pitchwire::daemon {
+
+// UTC wall clock as the session record and markers write it: ISO 8601 with milliseconds
+// ("2026-12-02T10:15:00.250Z"), or with `compact` the folder-name form ("20261202T101500Z").
+[[nodiscard]] std::string utc_wall_clock(std::chrono::system_clock::time_point when, bool compact = false);
 
 struct RecorderOptions {
   std::filesystem::path sessions_dir;  // parent of the session folders (created 0700 when missing)
