@@ -123,6 +123,10 @@ constexpr Limits kRequestBurst{1, 10000};
 constexpr Limits kStatsInterval{0.1, 60};
 constexpr Limits kStatsWindow{0.5, 600};
 constexpr Limits kBandDwell{0, 5};
+constexpr Limits kStabilityWindow{0.2, 600};
+constexpr Limits kSplOffset{0, 200, "null (not calibrated) or 0 to 200 dB"};
+constexpr Limits kDoseVoiced{1, 86400, "null (no limit) or 1 to 86400 s"};
+constexpr Limits kDoseCycles{1, 1e9, "null (no limit) or 1 to 1e9 cycles"};
 constexpr double kF0RatioMin = 1.5;   // f0_max_hz must exceed this times f0_min_hz (the tracker's rule)
 constexpr double kRingBuffersMin = 2;  // the ring holds at least this many device buffers
 
@@ -198,14 +202,15 @@ InputSpec parse_input_as(const Subject& subject, const std::string& text) {
 // ---- the configuration file ----------------------------------------------------------------------------
 
 // The keys of the file, in the order of DaemonConfig (and of to_json_text and config/pitchwired.jsonc).
-constexpr std::array<std::string_view, 30> kKeys = {
+constexpr std::array<std::string_view, 35> kKeys = {
     "input", "sample_rate_hz", "buffer_frames", "channel", "loop", "ring_s",                      // audio
     "hop_ms", "settle_ms", "f0_min_hz", "f0_max_hz", "hum_cancel", "reference_hz",               // estimator
     "bind", "port", "web_root", "max_clients", "max_message_bytes", "queue_frames",              // server
     "slow_client_s", "requests_per_s", "request_burst", "stats_interval_s", "stats_window_s",
-    "band_dwell_s",
+    "band_dwell_s", "stability_window_s",
+    "spl_offset_db", "dose_limit_voiced_s", "dose_limit_cycles",                                  // measures
     "log_level", "log_file", "token_dir", "record_sessions", "session_dir",
-    "exercises_file"};                                                        // files
+    "exercises_file", "record_audio"};                                        // files
 
 std::string lower(std::string_view text) {
   std::string out(text);
@@ -319,6 +324,14 @@ class FileReader {
       config.stats_window_s = number(key, value, kStatsWindow);
     } else if (key == "band_dwell_s") {
       config.band_dwell_s = number(key, value, kBandDwell);
+    } else if (key == "stability_window_s") {
+      config.stability_window_s = number(key, value, kStabilityWindow);
+    } else if (key == "spl_offset_db") {
+      config.spl_offset_db = optional_number(key, value, kSplOffset);
+    } else if (key == "dose_limit_voiced_s") {
+      config.dose_limit_voiced_s = optional_number(key, value, kDoseVoiced);
+    } else if (key == "dose_limit_cycles") {
+      config.dose_limit_cycles = optional_number(key, value, kDoseCycles);
     } else if (key == "log_level") {
       config.log_level = text_value(key, value);
       check_log_level(s, config.log_level);
@@ -332,6 +345,8 @@ class FileReader {
       config.session_dir = path_value(key, value);
     } else if (key == "exercises_file") {
       config.exercises_file = path_value(key, value);
+    } else if (key == "record_audio") {
+      config.record_audio = boolean(key, value);
     } else {
       throw ConfigError(unknown_key_message(key));
     }
@@ -350,6 +365,13 @@ class FileReader {
     const double result = number(key, value);
     check_number(Subject{key, false}, result, limits);
     return result;
+  }
+  // null: not set.
+  static std::optional<double> optional_number(const std::string& key, const OrderedJson& value,
+                                               const Limits& limits) {
+    if (value.is_null()) return std::nullopt;
+    if (!value.is_number()) fail_type(key, "a number or null", value);
+    return number(key, value, limits);
   }
 
   // An integer checked against limits before it is narrowed. A float with a whole value (1e3) counts:
@@ -455,14 +477,15 @@ std::string parse_error_what(const nlohmann::json::parse_error& e) {
 
 // The limits of a numeric key, or nullptr.
 const Limits* limits_of(std::string_view key) {
-  static constexpr std::array<std::pair<std::string_view, const Limits*>, 19> kNumeric = {{
+  static constexpr std::array<std::pair<std::string_view, const Limits*>, 23> kNumeric = {{
       {"sample_rate_hz", &kSampleRate}, {"buffer_frames", &kBufferFrames}, {"channel", &kChannel},
       {"ring_s", &kRingSeconds}, {"hop_ms", &kHopMs}, {"settle_ms", &kSettleMs}, {"f0_min_hz", &kF0Min},
       {"f0_max_hz", &kF0Max}, {"reference_hz", &kReference}, {"port", &kPort}, {"max_clients", &kMaxClients},
       {"max_message_bytes", &kMaxMessageBytes}, {"queue_frames", &kQueueFrames}, {"slow_client_s", &kSlowClient},
       {"requests_per_s", &kRequestsPerS}, {"request_burst", &kRequestBurst},
       {"stats_interval_s", &kStatsInterval}, {"stats_window_s", &kStatsWindow},
-      {"band_dwell_s", &kBandDwell},
+      {"band_dwell_s", &kBandDwell}, {"stability_window_s", &kStabilityWindow}, {"spl_offset_db", &kSplOffset},
+      {"dose_limit_voiced_s", &kDoseVoiced}, {"dose_limit_cycles", &kDoseCycles},
   }};
   for (const auto& [name, limits] : kNumeric) {
     if (name == key) return limits;
@@ -591,6 +614,8 @@ struct Flags {
   std::string port, channel, sample_rate, buffer_frames, hop_ms, settle_ms, f0_min, f0_max;
   bool no_hum_cancel = false;
   bool no_loop = false;
+  bool record_audio = false;
+  bool audio_consent = false;
 };
 
 void apply_flags(const CLI::App& app, const Flags& f, DaemonConfig& config) {
@@ -632,6 +657,8 @@ void apply_flags(const CLI::App& app, const Flags& f, DaemonConfig& config) {
     check_path(Subject{"--log-file", true}, f.log_file);
     config.log_file = f.log_file;
   }
+  if (f.record_audio) config.record_audio = true;
+  config.audio_consent = f.audio_consent;
 }
 
 }  // namespace
@@ -680,6 +707,10 @@ void DaemonConfig::validate() const {
   check_number(key("stats_interval_s"), stats_interval_s, kStatsInterval);
   check_number(key("stats_window_s"), stats_window_s, kStatsWindow);
   check_number(key("band_dwell_s"), band_dwell_s, kBandDwell);
+  check_number(key("stability_window_s"), stability_window_s, kStabilityWindow);
+  if (spl_offset_db) check_number(key("spl_offset_db"), *spl_offset_db, kSplOffset);
+  if (dose_limit_voiced_s) check_number(key("dose_limit_voiced_s"), *dose_limit_voiced_s, kDoseVoiced);
+  if (dose_limit_cycles) check_number(key("dose_limit_cycles"), *dose_limit_cycles, kDoseCycles);
   check_log_level(key("log_level"), log_level);
   check_path(key("web_root"), web_root.string());
   check_path(key("log_file"), log_file.string());
@@ -688,6 +719,11 @@ void DaemonConfig::validate() const {
   check_path(key("exercises_file"), exercises_file.string());
 
   // Settings that depend on each other.
+  if (record_audio && !audio_consent) {
+    throw ConfigError(
+        "record_audio is true but --audio-consent was not given: keeping a recording of a voice needs the "
+        "speaker's explicit consent, given on the command line for each run (docs/sessions.md)");
+  }
   if (!(f0_max_hz > kF0RatioMin * f0_min_hz)) {
     fail_allowed(key("f0_max_hz"), format_number(f0_max_hz),
                  "more than 1.5 x f0_min_hz (" + format_number(f0_min_hz) + " Hz), at most 2000");
@@ -868,6 +904,12 @@ CommandLine parse_command_line(int argc, const char* const* argv) {
     app.add_option("--log-file", f.log_file, "Log file (default $XDG_STATE_HOME/pitchwire/pitchwired.log)")
         ->type_name("FILE")
         ->group(kFiles);
+    app.add_flag("--record-audio", f.record_audio,
+                 "Also keep the input as audio.wav in the session folder (needs --audio-consent)")
+        ->group(kFiles);
+    app.add_flag("--audio-consent", f.audio_consent,
+                 "The speaker has given explicit consent to keeping a recording of their voice in this run")
+        ->group(kFiles);
 
     try {
       app.parse(argc, argv);
@@ -945,12 +987,18 @@ std::string to_json_text(const DaemonConfig& config) {
   out["stats_interval_s"] = config.stats_interval_s;
   out["stats_window_s"] = config.stats_window_s;
   out["band_dwell_s"] = config.band_dwell_s;
+  out["stability_window_s"] = config.stability_window_s;
+  auto optional = [](const std::optional<double>& v) { return v ? OrderedJson(*v) : OrderedJson(nullptr); };
+  out["spl_offset_db"] = optional(config.spl_offset_db);
+  out["dose_limit_voiced_s"] = optional(config.dose_limit_voiced_s);
+  out["dose_limit_cycles"] = optional(config.dose_limit_cycles);
   out["log_level"] = config.log_level;
   out["log_file"] = config.log_file.string();
   out["token_dir"] = config.token_dir.string();
   out["record_sessions"] = config.record_sessions;
   out["session_dir"] = config.session_dir.string();
   out["exercises_file"] = config.exercises_file.string();
+  out["record_audio"] = config.record_audio;
   return out.dump(2, ' ', false, OrderedJson::error_handler_t::replace);
 }
 

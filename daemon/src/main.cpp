@@ -183,6 +183,9 @@ class RecordingTee final : public pw::PipelineListener {
     if (recorder_) recorder_->record_stats(stats);
   }
   void on_event(const pitchwire::protocol::Event& event) override { server_.on_event(event); }
+  void on_audio(std::span<const float> samples) override {
+    if (recorder_) recorder_->record_audio(samples);
+  }
   void on_end() override { server_.on_end(); }
 
  private:
@@ -236,6 +239,7 @@ int run(const pw::DaemonConfig& config) {
   options.hello.reference_hz = config.reference_hz;
   options.hello.f0_min_hz = config.f0_min_hz;
   options.hello.f0_max_hz = config.f0_max_hz;
+  options.hello.spl_offset_db = config.spl_offset_db;
 
   pw::SampleRing ring(static_cast<std::size_t>(config.ring_s * kMaxSourceRateHz));
   std::unique_ptr<pw::AudioSource> source = make_source(config);
@@ -248,6 +252,10 @@ int run(const pw::DaemonConfig& config) {
   pipeline_options.stats_interval_s = config.stats_interval_s;
   pipeline_options.stats_window_s = config.stats_window_s;
   pipeline_options.band_dwell_s = config.band_dwell_s;
+  pipeline_options.stability_window_s = config.stability_window_s;
+  pipeline_options.spl_offset_db = config.spl_offset_db;
+  pipeline_options.dose_limit_voiced_s = config.dose_limit_voiced_s;
+  pipeline_options.dose_limit_cycles = config.dose_limit_cycles;
 
   // The session record (docs/sessions.md): unfinished sessions of an earlier run are closed first.
   std::unique_ptr<pw::Recorder> recorder;
@@ -259,6 +267,9 @@ int run(const pw::DaemonConfig& config) {
     return p ? p->audio_time_s() : 0.0;
   };
   pw::Server* server_for_problems = nullptr;  // set once the server exists; the recorder starts after
+  if (config.record_audio && !config.record_sessions) {
+    spdlog::warn("record_audio is true but record_sessions is false: no audio is kept (it goes in the session folder)");
+  }
   if (config.record_sessions) {
     const fs::path sessions = config.session_dir.empty() ? pw::default_state_dir() / "sessions" : config.session_dir;
     for (const fs::path& dir : pw::Recorder::close_unfinished(sessions)) {
@@ -268,6 +279,8 @@ int run(const pw::DaemonConfig& config) {
     recorder_options.sessions_dir = sessions;
     recorder_options.source = source->describe();
     recorder_options.hop_ms = config.hop_ms;
+    // Only with the speaker's consent, checked with the settings (--audio-consent).
+    recorder_options.record_audio = config.record_audio && config.audio_consent;
     recorder = std::make_unique<pw::Recorder>(
         recorder_options, [audio_now, &server_for_problems](const std::string& message, bool resolved) {
           if (resolved) {
@@ -310,8 +323,13 @@ int run(const pw::DaemonConfig& config) {
   source->start(ring, relay);
   server.set_audio_format({source->sample_rate_hz(), source->channel()});
   if (recorder) {
+    recorder->set_sample_rate(source->sample_rate_hz());
     recorder->start();
     spdlog::info("session record in {}", recorder->folder().string());
+    if (config.record_audio) {
+      spdlog::info("recording the input audio to {} (consent given with --audio-consent)",
+                   (recorder->folder() / "audio.wav").string());
+    }
   }
   pipeline = std::make_unique<pw::Pipeline>(ring, *source, pipeline_options, tee);
   pipeline->start();

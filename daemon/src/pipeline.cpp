@@ -42,11 +42,13 @@ class Forwarder final : public dsp::FrameSink {
   Forwarder(PipelineListener& listener, const PipelineOptions& options, std::atomic<std::int64_t>& frames,
             BandSlot& band_slot)
       : listener_(listener), frames_(frames), options_(options), band_slot_(band_slot) {
-    const double hop_s = options.tracker.hop_ms / 1000.0;
-    window_.assign(static_cast<std::size_t>(std::ceil(options.stats_window_s / hop_s)), std::nullopt);
+    hop_s_ = options.tracker.hop_ms / 1000.0;
+    stats_frames_ = static_cast<std::size_t>(std::ceil(options.stats_window_s / hop_s_ - 1e-9));
+    stability_frames_ = static_cast<std::size_t>(std::ceil(options.stability_window_s / hop_s_ - 1e-9));
+    window_.assign(std::max(stats_frames_, stability_frames_), std::nullopt);
     levels_.assign(window_.size(), -200.0f);
     scratch_.reserve(window_.size());
-    interval_frames_ = std::max<std::int64_t>(1, std::llround(options.stats_interval_s / hop_s));
+    interval_frames_ = std::max<std::int64_t>(1, std::llround(options.stats_interval_s / hop_s_));
   }
 
   void on_live(const dsp::LiveFrame& frame) override {
@@ -68,25 +70,50 @@ class Forwarder final : public dsp::FrameSink {
     levels_[next_] = frame.level_dbfs;
     next_ = (next_ + 1) % window_.size();
     filled_ = std::min(filled_ + 1, window_.size());
+    if (frame.f0_hz) {
+      voiced_s_ += hop_s_;
+      cycle_dose_ += static_cast<double>(*frame.f0_hz) * hop_s_;
+      check_dose("voiced_s", options_.dose_limit_voiced_s, voiced_s_, voiced_limit_sent_, frame.time_s);
+      check_dose("cycle_dose", options_.dose_limit_cycles, cycle_dose_, cycles_limit_sent_, frame.time_s);
+    }
     if ((frame.index + 1) % interval_frames_ == 0) listener_.on_stats(stats(frame.time_s));
   }
 
  private:
+  // Vocal dose limits (docs/measures.md, "Vocal dose"): one event per run and measure, when it is passed.
+  void check_dose(std::string_view measure, const std::optional<double>& limit, double value, bool& sent,
+                  double time_s) {
+    if (sent || !limit || value < *limit) return;
+    sent = true;
+    listener_.on_event(protocol::dose_limit_event(time_s, measure, *limit, std::round(value * 1000.0) / 1000.0));
+  }
+
+  // Index in the ring of the k-th most recent frame (k = 0: the newest).
+  [[nodiscard]] std::size_t recent(std::size_t k) const { return (next_ + window_.size() - 1 - k) % window_.size(); }
+
   // Statistics over the settled frames of the window (docs/measures.md): voiced share, percentiles
-  // (dsp::f0_range, Hyndman & Fan definition 7) and the SD in semitones (dsp::f0_sd_semitones).
+  // (dsp::f0_range, Hyndman & Fan definition 7), and the SD in semitones (dsp::f0_sd_semitones) over the
+  // stability window; the session's vocal doses.
   protocol::Stats stats(double time_s) {
-    scratch_.clear();
-    for (std::size_t i = 0; i < filled_; ++i) {
-      if (window_[i]) scratch_.push_back(*window_[i]);
-    }
-    protocol::Stats s;
-    s.time_s = time_s;
-    s.window_s = static_cast<double>(filled_) * options_.tracker.hop_ms / 1000.0;
-    s.voiced_fraction = filled_ ? static_cast<double>(scratch_.size()) / static_cast<double>(filled_) : 0.0;
+    const std::size_t n = std::min(filled_, stats_frames_);
     // Rounded as frames are (3 decimals): the values come from single-precision F0.
     auto round3 = [](double x) { return std::round(x * 1000.0) / 1000.0; };
+    protocol::Stats s;
+    scratch_.clear();
+    for (std::size_t k = 0; k < std::min(filled_, stability_frames_); ++k) {
+      if (const auto& f0 = window_[recent(k)]) scratch_.push_back(*f0);
+    }
     if (const auto sd = dsp::f0_sd_semitones(scratch_)) s.f0_sd_st = round3(*sd);
-    if (const auto range = dsp::f0_range(scratch_)) {  // sorts scratch_ (after the SD, which does not care)
+    scratch_.clear();
+    for (std::size_t k = 0; k < n; ++k) {
+      if (const auto& f0 = window_[recent(k)]) scratch_.push_back(*f0);
+    }
+    s.time_s = time_s;
+    s.window_s = static_cast<double>(n) * hop_s_;
+    s.voiced_fraction = n ? static_cast<double>(scratch_.size()) / static_cast<double>(n) : 0.0;
+    s.session_voiced_s = round3(voiced_s_);
+    s.session_cycle_dose = std::round(cycle_dose_ * 10.0) / 10.0;
+    if (const auto range = dsp::f0_range(scratch_)) {  // sorts scratch_
       s.f0_p5_hz = round3(range->p5_hz);
       s.f0_p50_hz = round3(range->median_hz);
       s.f0_p95_hz = round3(range->p95_hz);
@@ -99,13 +126,20 @@ class Forwarder final : public dsp::FrameSink {
     // digital silence and count as zero power.
     double power = 0.0;
     float loudest = -200.0f;
-    for (std::size_t i = 0; i < filled_; ++i) {
-      if (levels_[i] > -200.0f) power += std::pow(10.0, static_cast<double>(levels_[i]) / 10.0);
-      loudest = std::max(loudest, levels_[i]);
+    for (std::size_t k = 0; k < n; ++k) {
+      const float level = levels_[recent(k)];
+      if (level > -200.0f) power += std::pow(10.0, static_cast<double>(level) / 10.0);
+      loudest = std::max(loudest, level);
     }
-    if (filled_ > 0 && power > 0.0) {
-      s.level_mean_dbfs = std::round(100.0 * 10.0 * std::log10(power / static_cast<double>(filled_))) / 100.0;
-      s.level_max_dbfs = std::round(100.0 * static_cast<double>(loudest)) / 100.0;
+    auto round2 = [](double x) { return std::round(100.0 * x) / 100.0; };
+    if (n > 0 && power > 0.0) {
+      s.level_mean_dbfs = round2(10.0 * std::log10(power / static_cast<double>(n)));
+      s.level_max_dbfs = round2(static_cast<double>(loudest));
+      // dB SPL only through the calibration offset the supervisor measured (docs/measures.md, "Level").
+      if (options_.spl_offset_db) {
+        s.level_mean_db_spl = round2(*s.level_mean_dbfs + *options_.spl_offset_db);
+        s.level_max_db_spl = round2(*s.level_max_dbfs + *options_.spl_offset_db);
+      }
     }
     s.voiced_fraction = round3(s.voiced_fraction);
     // Time inside each band: voiced frames of the window inside it, over voiced frames (docs/measures.md).
@@ -154,6 +188,10 @@ class Forwarder final : public dsp::FrameSink {
   std::vector<std::optional<float>> window_;  // ring of the last settled F0 values
   std::vector<float> levels_;                 // and their levels (dBFS)
   std::size_t next_ = 0, filled_ = 0;
+  std::size_t stats_frames_ = 1, stability_frames_ = 1;  // window lengths in frames (ring: the longer)
+  double hop_s_ = 0.005;
+  double voiced_s_ = 0.0, cycle_dose_ = 0.0;  // session doses
+  bool voiced_limit_sent_ = false, cycles_limit_sent_ = false;
   std::vector<double> scratch_;
   std::int64_t interval_frames_ = 1;
   BandSlot& band_slot_;
@@ -202,6 +240,7 @@ void Pipeline::run() {
     std::fill(chunk.begin(), chunk.end(), 0.0f);
     for (std::int64_t left = missing; left > 0;) {
       const auto k = static_cast<std::size_t>(std::min<std::int64_t>(left, static_cast<std::int64_t>(chunk.size())));
+      listener_.on_audio(std::span<const float>(chunk.data(), k));
       tracker_->process(std::span<const float>(chunk.data(), k), forwarder);
       samples_.fetch_add(static_cast<std::int64_t>(k), std::memory_order_relaxed);
       left -= static_cast<std::int64_t>(k);
@@ -211,6 +250,7 @@ void Pipeline::run() {
   while (!stop_requested_.load(std::memory_order_relaxed)) {
     const std::size_t n = ring_.read(chunk.data(), chunk.size());
     if (n > 0) {
+      listener_.on_audio(std::span<const float>(chunk.data(), n));
       tracker_->process(std::span<const float>(chunk.data(), n), forwarder);
       samples_.fetch_add(static_cast<std::int64_t>(n), std::memory_order_relaxed);
     }

@@ -25,6 +25,9 @@ namespace {
 constexpr const char* kFormat = "pitchwire.session.v1";
 constexpr auto kRetryInterval = std::chrono::seconds(3);  // a failing disk is tried again this often
 constexpr auto kWakeInterval = std::chrono::milliseconds(100);
+constexpr const char* kAudioFile = "audio.wav";
+// audio.wav: 24-bit PCM WAV (what every audio program reads; 4 GB is about 7.7 hours at 48 kHz).
+constexpr int kAudioFormat = SF_FORMAT_WAV | SF_FORMAT_PCM_24;
 
 // Summary percentiles come from a histogram of 10-cent bins from 20 Hz up (bounded memory for sessions of
 // any length; each percentile is exact to 10 cents).
@@ -177,6 +180,12 @@ void Recorder::start() {
   for (int n = 2; fs::exists(folder_, ec); ++n) folder_ = options_.sessions_dir / (base + "-" + std::to_string(n));
   nlohmann::json head{{"type", "session"},        {"format", kFormat},         {"started_wall", started_wall_},
                       {"source", options_.source}, {"hop_ms", options_.hop_ms}, {"pid", static_cast<int>(::getpid())}};
+  if (options_.record_audio) {
+    head["audio_file"] = kAudioFile;
+    head["sample_rate_hz"] = options_.sample_rate_hz;
+    audio_queue_max_ = static_cast<std::size_t>(options_.audio_queue_s * options_.sample_rate_hz);
+    audio_queue_.reserve(audio_queue_max_);
+  }
   push(head.dump(), false);
   {
     const std::lock_guard lock(mutex_);
@@ -248,6 +257,72 @@ void Recorder::record_event(const protocol::Event& event) {
   push("{\"type\":\"event\",\"wall\":\"" + wall_clock() + "\"" + protocol::encode(event).body, false);
 }
 
+void Recorder::record_audio(std::span<const float> samples) {
+  if (!options_.record_audio || samples.empty()) return;
+  const std::lock_guard lock(mutex_);
+  if (audio_dropping_ || audio_queue_.size() + samples.size() > audio_queue_max_) {
+    audio_dropping_ = true;
+    audio_silence_ += static_cast<std::int64_t>(samples.size());
+    audio_lost_.fetch_add(static_cast<std::int64_t>(samples.size()));
+    return;
+  }
+  audio_queue_.insert(audio_queue_.end(), samples.begin(), samples.end());
+}
+
+bool Recorder::open_audio(std::string& failed) {
+  const fs::path path = folder_ / kAudioFile;
+  const int fd = ::open(path.c_str(), O_RDWR | O_CREAT | O_CLOEXEC, 0600);
+  struct stat st {};
+  if (fd < 0 || ::fchmod(fd, 0600) != 0 || ::fstat(fd, &st) != 0) {
+    failed = std::string(kAudioFile) + ": " + std::strerror(errno);
+    if (fd >= 0) ::close(fd);
+    return false;
+  }
+  SF_INFO info{};
+  if (st.st_size == 0) {
+    info.samplerate = static_cast<int>(std::lround(options_.sample_rate_hz));
+    info.channels = 1;
+    info.format = kAudioFormat;
+    audio_ = sf_open_fd(fd, SFM_WRITE, &info, SF_FALSE);
+  } else {  // writing again after a failure: append
+    audio_ = sf_open_fd(fd, SFM_RDWR, &info, SF_FALSE);
+    if (audio_ && sf_seek(audio_, 0, SEEK_END) < 0) {
+      sf_close(audio_);
+      audio_ = nullptr;
+    }
+  }
+  if (!audio_) {
+    failed = std::string(kAudioFile) + ": " + sf_strerror(nullptr);
+    ::close(fd);
+    return false;
+  }
+  audio_fd_ = fd;
+  // The header is brought up to date on every write, so that a killed daemon leaves a readable file.
+  sf_command(audio_, SFC_SET_UPDATE_HEADER_AUTO, nullptr, SF_TRUE);
+  sf_command(audio_, SFC_SET_CLIPPING, nullptr, SF_TRUE);
+  return true;
+}
+
+bool Recorder::write_audio(const std::vector<float>& samples, std::string& failed) {
+  if (!audio_ && !open_audio(failed)) return false;
+  // Silence owed for samples lost earlier comes first: it stood before these in the input.
+  static constexpr std::array<float, 4096> kZeros{};
+  while (audio_owed_ > 0) {
+    const auto n = static_cast<sf_count_t>(std::min<std::int64_t>(audio_owed_, kZeros.size()));
+    if (sf_writef_float(audio_, kZeros.data(), n) != n) {
+      failed = std::string(kAudioFile) + ": " + sf_strerror(audio_);
+      return false;
+    }
+    audio_owed_ -= n;
+  }
+  const auto n = static_cast<sf_count_t>(samples.size());
+  if (n > 0 && sf_writef_float(audio_, samples.data(), n) != n) {
+    failed = std::string(kAudioFile) + ": " + sf_strerror(audio_);
+    return false;
+  }
+  return true;
+}
+
 void Recorder::problem(const std::string& what) {
   if (failing_) return;
   failing_ = true;
@@ -294,6 +369,7 @@ bool Recorder::write_out(std::deque<std::string>& lines) {
 }
 
 bool Recorder::flush_files() {
+  if (audio_) sf_write_sync(audio_);
   return std::fflush(log_) == 0 && std::fflush(csv_) == 0 && ::fdatasync(::fileno(log_)) == 0 &&
          ::fdatasync(::fileno(csv_)) == 0;
 }
@@ -301,7 +377,11 @@ bool Recorder::flush_files() {
 void Recorder::close_files() noexcept {
   if (log_) std::fclose(log_);
   if (csv_) std::fclose(csv_);
+  if (audio_) sf_close(audio_);
+  if (audio_fd_ >= 0) ::close(audio_fd_);
   log_ = csv_ = nullptr;
+  audio_ = nullptr;
+  audio_fd_ = -1;
 }
 
 void Recorder::run() {
@@ -311,7 +391,13 @@ void Recorder::run() {
   auto last_try = Clock::now() - kRetryInterval;
   const auto flush_every = std::chrono::duration<double>(options_.flush_interval_s);
   bool stopping = false;
+  // Audio taken from the queue; swapped with it, so that both keep their capacity (the analysis thread
+  // never allocates to append).
+  std::vector<float> audio;
+  audio.reserve(audio_queue_max_);
   while (!stopping) {
+    audio.clear();
+    std::int64_t audio_owed_after = 0;
     std::deque<std::string> lines, rows;
     std::deque<std::pair<std::string, std::string>> files;
     {
@@ -321,13 +407,24 @@ void Recorder::run() {
       lines.swap(queue_);
       rows.swap(csv_queue_);
       files.swap(files_);
+      audio.swap(audio_queue_);
+      // Input lost after these samples (the queue was full) is owed as silence after them.
+      audio_owed_after = audio_silence_;
+      audio_silence_ = 0;
+      audio_dropping_ = false;
     }
     if (!log_ && (stopping || Clock::now() - last_try >= kRetryInterval)) {
       last_try = Clock::now();
       open_files();
     }
+    // Audio that cannot be written now is owed as silence, so that audio.wav stays on the audio clock.
+    auto lose_audio = [&] {
+      audio_lost_.fetch_add(static_cast<std::int64_t>(audio.size()));
+      audio_owed_ += static_cast<std::int64_t>(audio.size()) + audio_owed_after;
+    };
     if (!log_) {  // nothing can be written: these lines are lost, and counted (an exercise's file is
       // kept for the next try: its summary is in the events too)
+      lose_audio();
       dropped_.fetch_add(static_cast<std::int64_t>(lines.size()));
       const std::lock_guard lock(mutex_);
       files_.insert(files_.begin(), files.begin(), files.end());
@@ -351,6 +448,16 @@ void Recorder::run() {
         ok = false;
         failed = "frames.csv: " + std::string(std::strerror(errno));
       }
+    }
+    if (ok && options_.record_audio) {
+      if (write_audio(audio, failed)) {
+        audio_owed_ += audio_owed_after;
+      } else {
+        ok = false;
+        lose_audio();
+      }
+    } else if (options_.record_audio) {
+      lose_audio();
     }
     if (ok) unflushed_ += data_lines;
     if (ok && (stopping || gap_upto >= 0 || Clock::now() - last_flush >= flush_every)) {

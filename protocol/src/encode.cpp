@@ -136,6 +136,7 @@ Encoded encode(const Hello& m) {
            {"role", name(m.role)},
            {"bands", band_list(m.bands)},
            {"exercise", std::move(exercise)},
+           {"spl_offset_db", or_null(m.spl_offset_db)},
            {"fields", field_list(FieldSet::all())},
            {"limits", {{"max_message_bytes", m.max_message_bytes},
                        {"max_label_chars", kMaxLabelChars},
@@ -155,6 +156,10 @@ Encoded encode(const Stats& m) {
                                             {"f0_range_st", or_null(m.f0_range_st)},
                                             {"level_mean_dbfs", or_null(m.level_mean_dbfs)},
                                             {"level_max_dbfs", or_null(m.level_max_dbfs)},
+                                            {"level_mean_db_spl", or_null(m.level_mean_db_spl)},
+                                            {"level_max_db_spl", or_null(m.level_max_db_spl)},
+                                            {"session_voiced_s", m.session_voiced_s},
+                                            {"session_cycle_dose", m.session_cycle_dose},
                                             {"bands", band_shares(m.bands)}});
 }
 

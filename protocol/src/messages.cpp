@@ -115,6 +115,10 @@ Event recording_problem_event(double time_s, std::string_view message, bool reso
   return event(EventKind::kRecordingProblem, time_s, Json{{"message", message}, {"resolved", resolved}});
 }
 
+Event dose_limit_event(double time_s, std::string_view measure, double limit, double value) {
+  return event(EventKind::kDoseLimit, time_s, Json{{"measure", measure}, {"limit", limit}, {"value", value}});
+}
+
 Ack subscribe_ack(const Subscribe& request, double hop_ms) {
   const int n = decimation(request.rate, hop_ms);
   Json fields = Json::array();

@@ -156,7 +156,7 @@ TEST(Config, ShippedFileHasEveryKey) {
   // to_json_text and missing here would be a setting nobody is told about.
   const std::set<std::string> written = keys_of(to_json_text(defaults()));
   EXPECT_EQ(keys_of(read_text(shipped_config())), written);
-  EXPECT_EQ(written.size(), 30u);
+  EXPECT_EQ(written.size(), 35u);
 }
 
 TEST(Config, EveryKeyIsReadFromTheFile) {
@@ -186,12 +186,18 @@ TEST(Config, EveryKeyIsReadFromTheFile) {
   changed.stats_interval_s = 1;
   changed.stats_window_s = 30;
   changed.band_dwell_s = 0.5;
+  changed.stability_window_s = 4;
+  changed.spl_offset_db = 94.5;
+  changed.dose_limit_voiced_s = 600;
+  changed.dose_limit_cycles = 120000;
   changed.log_level = "debug";
   changed.log_file = "/var/tmp/pitchwired.log";
   changed.token_dir = "/var/tmp/tokens";
   changed.record_sessions = false;
   changed.session_dir = "/var/tmp/sessions";
   changed.exercises_file = "/srv/exercises.jsonc";
+  changed.record_audio = true;
+  changed.audio_consent = true;  // a command-line flag only: never read from or written to a file
   ASSERT_NO_THROW(changed.validate());
 
   const std::string text = to_json_text(changed);
@@ -338,6 +344,10 @@ TEST(Config, SettingsThatDependOnEachOtherAreChecked) {
       {{"--buffer-frames", "8192", "--sample-rate", "8000", "--input", "device"},
        "pitchwired: ring_s = 2: allowed at least 2 x buffer_frames (8192) at sample_rate_hz (8000), that is "
        "2.048 s, up to 30"},
+      // Keeping a recording of a voice needs the speaker's consent, on the command line of each run.
+      {{"--record-audio"},
+       "pitchwired: record_audio is true but --audio-consent was not given: keeping a recording of a voice "
+       "needs the speaker's explicit consent, given on the command line for each run (docs/sessions.md)"},
   };
   TempDir dir;
   ScopedEnv xdg("XDG_CONFIG_HOME", dir.path().string());
@@ -349,6 +359,26 @@ TEST(Config, SettingsThatDependOnEachOtherAreChecked) {
   }
 }
 
+TEST(Config, AudioIsRecordedOnlyWithConsentGivenForTheRun) {
+  TempDir dir;
+  ScopedEnv xdg("XDG_CONFIG_HOME", dir.path().string());
+  const CommandLine both = parse({"--record-audio", "--audio-consent"});
+  ASSERT_FALSE(both.exit_code) << both.message;
+  EXPECT_TRUE(both.config.record_audio && both.config.audio_consent);
+  // record_audio from a file still needs the flag; consent alone records nothing.
+  const fs::path file = dir.write("audio.jsonc", R"({"record_audio": true})");
+  const CommandLine from_file = parse({"--config", file.string()});
+  EXPECT_EQ(from_file.exit_code, 2);
+  EXPECT_NE(from_file.message.find("--audio-consent was not given"), std::string::npos) << from_file.message;
+  EXPECT_FALSE(parse({"--config", file.string(), "--audio-consent"}).exit_code);
+  const CommandLine consent_only = parse({"--audio-consent"});
+  ASSERT_FALSE(consent_only.exit_code) << consent_only.message;
+  EXPECT_FALSE(consent_only.config.record_audio);
+  // Consent is never read from a file: there is no such key.
+  const fs::path sneaky = dir.write("consent.jsonc", R"({"audio_consent": true})");
+  EXPECT_NE(parse({"--config", sneaky.string()}).message.find("unknown key \"audio_consent\""), std::string::npos);
+}
+
 TEST(Config, ValidateNamesTheKeyTheValueAndWhatIsAllowed) {
   struct Case {
     std::function<void(DaemonConfig&)> change;
@@ -356,6 +386,13 @@ TEST(Config, ValidateNamesTheKeyTheValueAndWhatIsAllowed) {
   };
   const std::vector<Case> cases = {
       {[](DaemonConfig& c) { c.hop_ms = 12; }, "hop_ms = 12: allowed 2.5 to 10"},
+      {[](DaemonConfig& c) { c.stability_window_s = 0.1; }, "stability_window_s = 0.1: allowed 0.2 to 600"},
+      {[](DaemonConfig& c) { c.spl_offset_db = -3; },
+       "spl_offset_db = -3: allowed null (not calibrated) or 0 to 200 dB"},
+      {[](DaemonConfig& c) { c.dose_limit_voiced_s = 0; },
+       "dose_limit_voiced_s = 0: allowed null (no limit) or 1 to 86400 s"},
+      {[](DaemonConfig& c) { c.dose_limit_cycles = std::numeric_limits<double>::quiet_NaN(); },
+       "dose_limit_cycles = nan: allowed null (no limit) or 1 to 1e9 cycles"},
       {[](DaemonConfig& c) { c.hop_ms = std::numeric_limits<double>::quiet_NaN(); },
        "hop_ms = nan: allowed 2.5 to 10"},
       {[](DaemonConfig& c) { c.sample_rate_hz = std::numeric_limits<double>::infinity(); },

@@ -6,6 +6,8 @@
 #include <chrono>
 #include <condition_variable>
 #include <mutex>
+#include <set>
+#include <string>
 #include <thread>
 #include <vector>
 
@@ -246,6 +248,8 @@ TEST(Pipeline, BandCrossingsAndTimeInsideFollowTheVoice) {
       EXPECT_NEAR(*st.f0_min_hz, 200.0, 1.0);
       EXPECT_NEAR(*st.f0_max_hz, 200.0, 1.0);
       EXPECT_NEAR(*st.f0_range_st, 0.0, 0.05);
+      // Not calibrated (no spl_offset_db): no level in dB SPL.
+      EXPECT_FALSE(st.level_mean_db_spl || st.level_max_db_spl);
       saw_inside = true;
     }
     if (st.time_s > 1.7 && st.time_s < 1.95) {
@@ -257,6 +261,96 @@ TEST(Pipeline, BandCrossingsAndTimeInsideFollowTheVoice) {
   }
   EXPECT_TRUE(saw_inside);
   EXPECT_TRUE(saw_above);
+}
+
+// Doses, the stability window and the calibrated level, on a voice known by construction (8 kHz, sine of
+// amplitude 0.3): 200 Hz for 2 s, then 2 s of vibrato of +-1 semitone at 5 Hz around 200 Hz, then 2 s of
+// 200 Hz again.
+// - Cycle dose (Titze, Svec & Popolo 2003: the number of vocal fold cycles, sum of F0 x time over voiced
+//   time): a 2 s vowel at 200 Hz has 400 cycles, so the session dose at 2 s is 400.
+// - Stability: sine vibrato of depth +-d semitones has SD d / sqrt(2) (docs/measures.md), 0.707 st here;
+//   a steady tone has 0. With a 1 s stability window inside a 5 s statistics window, the SD follows the
+//   last second while the p5-p95 range still holds the vibrato.
+// - Level: a sine of amplitude 0.3 is -10.46 dBFS (AES17); with a calibration offset of 100 dB, 89.54 dB SPL.
+// - Dose limits of 1.5 s voiced and 300 cycles are passed at 1.5 s, each reported once.
+TEST(Pipeline, DosesStabilityWindowAndCalibratedLevel) {
+  constexpr double kRate = 8000.0, kPi = 3.14159265358979323846;
+  ManualSource source;
+  SampleRing ring(static_cast<std::size_t>(6 * kRate) + 100);
+  std::vector<float> x;
+  double phase = 0.0;
+  for (int i = 0; i < static_cast<int>(6 * kRate); ++i) {
+    const double t = i / kRate;
+    const double f0 = (t >= 2.0 && t < 4.0) ? 200.0 * std::exp2(std::sin(2 * kPi * 5.0 * (t - 2.0)) / 12.0) : 200.0;
+    x.push_back(static_cast<float>(0.3 * std::sin(phase)));
+    phase += 2 * kPi * f0 / kRate;
+  }
+  ring.write(x.data(), x.size());
+  Collector collector;
+  PipelineOptions options;
+  // A search range from 100 Hz: an analysis window of 2 / 100 Hz = 20 ms, which reads a 5 Hz vibrato with
+  // its depth within 2 % (docs/measures.md: the default 40 ms window reads it about 10 % shallower).
+  options.tracker.f0_min_hz = 100.0;
+  options.stats_window_s = 5.0;
+  options.stability_window_s = 1.0;
+  options.stats_interval_s = 0.25;
+  options.spl_offset_db = 100.0;
+  options.dose_limit_voiced_s = 1.5;
+  options.dose_limit_cycles = 300.0;
+  Pipeline pipeline(ring, source, options, collector);
+  pipeline.start();
+  const auto deadline = std::chrono::steady_clock::now() + 20s;
+  while (pipeline.audio_time_s() < 6.0 && std::chrono::steady_clock::now() < deadline) std::this_thread::sleep_for(1ms);
+  source.finished_.store(true);
+  ASSERT_TRUE(collector.wait_end(10s));
+  pipeline.stop();
+
+  bool saw_dose = false, saw_vibrato = false, saw_steady = false;
+  for (const auto& st : collector.stats) {
+    SCOPED_TRACE(st.time_s);
+    ASSERT_TRUE(st.level_mean_dbfs && st.level_mean_db_spl && st.level_max_db_spl);
+    EXPECT_NEAR(*st.level_mean_db_spl, 100.0 + 20.0 * std::log10(0.3), 0.05);
+    EXPECT_NEAR(*st.level_mean_db_spl - *st.level_mean_dbfs, 100.0, 0.011);
+    EXPECT_NEAR(*st.level_max_db_spl - *st.level_max_dbfs, 100.0, 0.011);
+    if (std::fabs(st.time_s - 1.995) < 0.003) {  // the last frame of the first 2 s (frames 0 to 399)
+      // Onset: the first frames, whose window starts before the tone, may be unvoiced (at most 4 hops).
+      EXPECT_NEAR(st.session_cycle_dose, 400.0, 4.0);
+      EXPECT_LE(st.session_cycle_dose, 400.5);
+      EXPECT_NEAR(st.session_voiced_s, 2.0, 0.02);
+      saw_dose = true;
+    }
+    if (st.time_s > 3.3 && st.time_s < 3.95) {  // the last second is all vibrato
+      ASSERT_TRUE(st.f0_sd_st);
+      EXPECT_NEAR(*st.f0_sd_st, 1.0 / std::sqrt(2.0), 0.05);
+      saw_vibrato = true;
+    }
+    if (st.time_s > 5.3 && st.time_s < 5.95) {  // the last second is steady; the last five hold vibrato
+      ASSERT_TRUE(st.f0_sd_st && st.f0_range_st);
+      EXPECT_LT(*st.f0_sd_st, 0.05);
+      EXPECT_GT(*st.f0_range_st, 1.0);
+      EXPECT_NEAR(st.window_s, 5.0, 0.006);
+      saw_steady = true;
+    }
+  }
+  EXPECT_TRUE(saw_dose && saw_vibrato && saw_steady);
+
+  std::vector<protocol::Event> limits;
+  for (const auto& e : collector.events) {
+    if (e.kind == protocol::EventKind::kDoseLimit) limits.push_back(e);
+  }
+  ASSERT_EQ(limits.size(), 2u);
+  for (const auto& e : limits) {
+    SCOPED_TRACE(e.payload.dump());
+    EXPECT_NEAR(e.time_s, 1.5, 0.03);
+    EXPECT_GE(e.payload.at("value").get<double>(), e.payload.at("limit").get<double>());
+  }
+  std::set<std::string> measures;
+  for (const auto& e : limits) {
+    const std::string measure = e.payload.at("measure");
+    measures.insert(measure);
+    EXPECT_EQ(e.payload.at("limit").get<double>(), measure == "voiced_s" ? 1.5 : 300.0);
+  }
+  EXPECT_EQ(measures, (std::set<std::string>{"voiced_s", "cycle_dose"}));
 }
 
 TEST(Sources, AFileThatIsNotThereIsAOneLineErrorNamingIt) {

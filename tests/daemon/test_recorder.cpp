@@ -3,6 +3,7 @@
 #include "pitchwire/daemon/recorder.h"
 
 #include <gtest/gtest.h>
+#include <sndfile.h>
 #include <sys/resource.h>
 #include <sys/stat.h>
 #include <unistd.h>
@@ -286,6 +287,104 @@ TEST(Recorder, ADiskThatFillsIsReportedOnceAndWritingResumesWithAGapLine) {
   // The exercise's own file, due while the disk was full, is written once there is room.
   EXPECT_TRUE(fs::exists(r.folder() / "exercise-01-sustained_vowel.json"));
   EXPECT_TRUE(fs::exists(r.folder() / "summary.json"));
+}
+
+// The input audio, with record_audio set: audio.wav (mode 0600) holds every sample given, in order, as
+// 24-bit PCM at the input's rate, and the log's first line names it.
+std::vector<float> read_wav(const fs::path& path, SF_INFO& info) {
+  info = SF_INFO{};
+  SNDFILE* f = sf_open(path.c_str(), SFM_READ, &info);
+  if (!f) return {};
+  std::vector<float> out(static_cast<std::size_t>(info.frames * info.channels));
+  out.resize(static_cast<std::size_t>(sf_readf_float(f, out.data(), info.frames)));
+  sf_close(f);
+  return out;
+}
+
+TEST(Recorder, KeepsTheInputAudioAsWavWhenAskedTo) {
+  TempDir tmp;
+  RecorderOptions options;
+  options.sessions_dir = tmp.path / "sessions";
+  options.record_audio = true;
+  options.sample_rate_hz = 16000.0;
+  Recorder r(options, [](const std::string& m, bool) { ADD_FAILURE() << "unexpected problem: " << m; });
+  r.start();
+  std::vector<float> sent;
+  for (int block = 0; block < 40; ++block) {  // 1 s of a 220 Hz sine at amplitude 0.5, in blocks of 400
+    std::vector<float> x(400);
+    for (std::size_t i = 0; i < x.size(); ++i) {
+      const double n = static_cast<double>(sent.size() + i);
+      x[i] = static_cast<float>(0.5 * std::sin(2.0 * 3.14159265358979 * 220.0 * n / 16000.0));
+    }
+    r.record_audio(x);
+    sent.insert(sent.end(), x.begin(), x.end());
+    if (block % 10 == 0) std::this_thread::sleep_for(std::chrono::milliseconds(120));  // across writes
+  }
+  r.stop();
+  const fs::path wav = r.folder() / "audio.wav";
+  ASSERT_TRUE(fs::exists(wav));
+  EXPECT_EQ(mode_of(wav), 0600u);
+  SF_INFO info;
+  const std::vector<float> got = read_wav(wav, info);
+  EXPECT_EQ(info.samplerate, 16000);
+  EXPECT_EQ(info.channels, 1);
+  EXPECT_EQ(info.format, SF_FORMAT_WAV | SF_FORMAT_PCM_24);
+  ASSERT_EQ(got.size(), sent.size());
+  for (std::size_t i = 0; i < got.size(); ++i) {
+    ASSERT_NEAR(got[i], sent[i], 1.0 / (1 << 22)) << i;  // 24-bit quantisation
+  }
+  EXPECT_EQ(r.audio_samples_lost(), 0);
+  const Json head = Json::parse(lines_of(r.folder() / "session.jsonl").at(0));
+  EXPECT_EQ(head["audio_file"], "audio.wav");
+  EXPECT_EQ(head["sample_rate_hz"], 16000.0);
+}
+
+// Without record_audio nothing is kept, whatever is handed over.
+TEST(Recorder, KeepsNoAudioUnlessAskedTo) {
+  TempDir tmp;
+  RecorderOptions options;
+  options.sessions_dir = tmp.path / "sessions";
+  Recorder r(options, [](const std::string& m, bool) { ADD_FAILURE() << "unexpected problem: " << m; });
+  r.start();
+  std::vector<float> x(4000, 0.25f);
+  r.record_audio(x);
+  r.stop();
+  EXPECT_FALSE(fs::exists(r.folder() / "audio.wav"));
+  EXPECT_FALSE(Json::parse(lines_of(r.folder() / "session.jsonl").at(0)).contains("audio_file"));
+}
+
+// Audio that does not fit in the queue is counted and written as silence in its place, so that audio.wav
+// stays on the audio clock: every block is either whole at its place or silent there.
+TEST(Recorder, AudioThatDoesNotFitIsSilenceInItsPlace) {
+  TempDir tmp;
+  RecorderOptions options;
+  options.sessions_dir = tmp.path / "sessions";
+  options.record_audio = true;
+  options.sample_rate_hz = 8000.0;
+  options.audio_queue_s = 0.125;  // 1000 samples
+  Recorder r(options, [](const std::string& m, bool) { ADD_FAILURE() << "unexpected problem: " << m; });
+  r.start();
+  constexpr int kBlocks = 12, kBlock = 600;
+  for (int b = 0; b < kBlocks; ++b) {
+    r.record_audio(std::vector<float>(kBlock, 0.01f * static_cast<float>(b + 1)));
+    if (b % 4 == 3) std::this_thread::sleep_for(std::chrono::milliseconds(250));  // let it drain
+  }
+  r.stop();
+  SF_INFO info;
+  const std::vector<float> got = read_wav(r.folder() / "audio.wav", info);
+  ASSERT_EQ(got.size(), static_cast<std::size_t>(kBlocks * kBlock));
+  std::int64_t silent = 0;
+  for (int b = 0; b < kBlocks; ++b) {
+    SCOPED_TRACE(b);
+    const float want = 0.01f * static_cast<float>(b + 1);
+    const auto first = got.begin() + b * kBlock;
+    const bool whole = std::all_of(first, first + kBlock, [&](float v) { return std::fabs(v - want) < 1e-5f; });
+    const bool zero = std::all_of(first, first + kBlock, [](float v) { return v == 0.0f; });
+    EXPECT_TRUE(whole || zero);
+    silent += zero ? kBlock : 0;
+  }
+  EXPECT_GT(r.audio_samples_lost(), 0);  // at most one 600-sample block fits in 1000 at a time
+  EXPECT_EQ(silent, r.audio_samples_lost());
 }
 
 }  // namespace

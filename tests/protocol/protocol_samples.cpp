@@ -82,6 +82,7 @@ int main() {
   hello.role = pw::Role::kSupervisor;
   hello.bands.clear();
   hello.exercise = pw::Exercise{"glide", "Glide, first try", 12.5};
+  hello.spl_offset_db = 94.5;
   server(pw::encode(hello));
 
   pitchwire::dsp::LiveFrame live;
@@ -122,6 +123,10 @@ int main() {
   stats.level_mean_dbfs = -23.41;
   stats.level_max_dbfs = -12.07;
   server(pw::encode(stats));
+  stats.level_mean_db_spl = 71.09;  // calibrated: spl_offset_db 94.5
+  stats.level_max_db_spl = 82.43;
+  stats.session_voiced_s = 412.35;
+  stats.session_cycle_dose = 78211.4;
   stats.bands = {{"target", 0.84, pw::BandPosition::kInside}, {"ceiling", std::nullopt, pw::BandPosition::kUnvoiced}};
   server(pw::encode(stats));
 
@@ -152,6 +157,8 @@ int main() {
   }
   server(pw::encode(pw::recording_problem_event(40.0, "session record: cannot write /home/coach/.local/state/pitchwire/sessions/20261202T101500Z/session.jsonl: No space left on device", false)));
   server(pw::encode(pw::recording_problem_event(52.0, "session record: writing again", true)));
+  server(pw::encode(pw::dose_limit_event(61.2, "voiced_s", 600.0, 600.005)));
+  server(pw::encode(pw::dose_limit_event(75.0, "cycle_dose", 120000.0, 120000.8)));
   server(pw::encode(pw::Error{pw::ErrorCode::kForbidden, "set_band: needs the supervisor role", "b1"}));
   server(pw::encode(pw::Pong{"p1", 41.005}));
   server(pw::encode(pw::Ack{"x1", pw::ClientType::kStartExercise, Json::object()}));

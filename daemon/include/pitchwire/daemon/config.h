@@ -65,6 +65,12 @@ struct DaemonConfig {
   double stats_interval_s = 0.5;      // "stats_interval_s": 0.1..60
   double stats_window_s = 5.0;        // "stats_window_s": 0.5..600
   double band_dwell_s = 0.25;         // "band_dwell_s": 0..5, band state hysteresis (docs/measures.md)
+  double stability_window_s = 2.0;    // "stability_window_s": 0.2..600, window of the F0 SD (stability)
+
+  // measures (docs/measures.md)
+  std::optional<double> spl_offset_db;        // "spl_offset_db": null or 0..200; dB SPL = dBFS + offset
+  std::optional<double> dose_limit_voiced_s;  // "dose_limit_voiced_s": null or 1..86400 s of voicing
+  std::optional<double> dose_limit_cycles;    // "dose_limit_cycles": null or 1..1e9 vocal fold cycles
 
   // logging and files
   std::string log_level = "info";     // "log_level": trace, debug, info, warn, error, off
@@ -73,6 +79,8 @@ struct DaemonConfig {
   bool record_sessions = true;        // "record_sessions": keep a session record (docs/sessions.md)
   std::filesystem::path session_dir;  // "session_dir": empty = $XDG_STATE_HOME/pitchwire/sessions (0700)
   std::filesystem::path exercises_file;  // "exercises_file": empty = the shipped config/exercises.jsonc
+  bool record_audio = false;          // "record_audio": also keep the input as audio.wav (needs consent)
+  bool audio_consent = false;         // --audio-consent only (never from a file): the speaker agreed to it
 
   // Throws ConfigError (first problem found, naming the key, the value and what is allowed).
   void validate() const;
@@ -99,7 +107,7 @@ struct CommandLine {
 
 // Parses argv with CLI11: --input, --port, --bind, --config, --check-config, --list-devices, --channel,
 // --sample-rate, --buffer-frames, --hop-ms, --settle-ms, --f0-min, --f0-max, --no-hum-cancel, --no-loop,
-// --web-root, --log-level, --log-file, --version, --help. Loads the configuration file (default path
+// --web-root, --log-level, --log-file, --record-audio, --audio-consent, --version, --help. Loads the configuration file (default path
 // when it exists, or --config), then applies the flags, then validates. Never throws: problems come back
 // as exit_code 2 with a one-line message.
 [[nodiscard]] CommandLine parse_command_line(int argc, const char* const* argv);

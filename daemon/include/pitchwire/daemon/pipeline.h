@@ -13,6 +13,8 @@
 #include <cstdint>
 #include <memory>
 #include <mutex>
+#include <optional>
+#include <span>
 #include <thread>
 #include <vector>
 
@@ -28,7 +30,10 @@ class PipelineListener {
   virtual void on_live(const dsp::LiveFrame& frame) = 0;
   virtual void on_settled(const dsp::SettledFrame& frame) = 0;
   virtual void on_stats(const protocol::Stats& stats) = 0;
-  virtual void on_event(const protocol::Event& event) = 0;  // overflow, band_crossing
+  virtual void on_event(const protocol::Event& event) = 0;  // overflow, band_crossing, dose_limit
+  // The input as analysed, in order (lost input as the silence analysed in its place), for a recording.
+  // Called before the frames the samples complete. The default ignores it.
+  virtual void on_audio(std::span<const float> samples) { (void)samples; }
   virtual void on_end() = 0;  // the source has finished and every frame has been delivered
 };
 
@@ -37,6 +42,10 @@ struct PipelineOptions {
   double stats_interval_s = 0.5;  // a `stats` every this many seconds of audio
   double stats_window_s = 5.0;    // over the settled frames of this many seconds
   double band_dwell_s = 0.25;     // band state hysteresis (dsp::BandTracker)
+  double stability_window_s = 2.0;  // the F0 SD over the settled frames of this many seconds
+  std::optional<double> spl_offset_db;        // dB SPL = dBFS + offset; empty: levels in dBFS only
+  std::optional<double> dose_limit_voiced_s;  // a dose_limit event when the run's voiced time passes it
+  std::optional<double> dose_limit_cycles;    // and when its cycle dose does
 };
 
 // Bands handed over from another thread: the analysis thread copies them when the version moves.

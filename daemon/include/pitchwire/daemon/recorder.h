@@ -1,7 +1,7 @@
 // recorder.h: the session record. One folder per daemon run under the sessions folder (mode 0700, files
 // 0600): an append-only JSON-lines log of settled frames, statistics and events, a CSV of the frames for
-// spreadsheets, a file per exercise with its summary, and a summary written when the session ends
-// (docs/sessions.md).
+// spreadsheets, a file per exercise with its summary, a summary written when the session ends, and, only
+// when asked for with the speaker's consent, the input audio as WAV (docs/sessions.md).
 //
 // Thread contract: construct, start() and stop() on the control thread. record_*() may be called from any
 // thread (the analysis thread for frames and statistics, the network thread for band changes, markers and
@@ -23,9 +23,12 @@
 #include <functional>
 #include <mutex>
 #include <optional>
+#include <span>
 #include <string>
 #include <thread>
 #include <vector>
+
+#include <sndfile.h>
 
 #include "pitchwire/dsp/pitch_tracker.h"
 #include "pitchwire/protocol/messages.h"
@@ -42,6 +45,9 @@ struct RecorderOptions {
   double hop_ms = 5.0;
   double flush_interval_s = 1.0;       // flush and fdatasync at least this often
   std::size_t queue_lines = 1 << 16;   // lines waiting for the disk before new ones are counted and dropped
+  bool record_audio = false;           // keep the input as audio.wav (the caller has checked consent)
+  double sample_rate_hz = 48000.0;     // of the input, for audio.wav
+  double audio_queue_s = 10.0;         // audio waiting for the disk before new samples are counted and lost
 };
 
 // Running totals of a session, from its frames and events; the same code sums a live session and reads an
@@ -71,6 +77,8 @@ class Recorder {
   // Creates the session folder and starts the writing thread. A folder that cannot be made is a problem
   // (reported, retried), not an exception: the daemon runs on without a record.
   void start();
+  // The input's sample rate, when it is known only once the source has started; call before start().
+  void set_sample_rate(double hz) { options_.sample_rate_hz = hz; }
   // Writes what is queued, the summary (closed "stopped") and closes the files. Within a second unless the
   // disk itself hangs.
   void stop() noexcept;
@@ -79,10 +87,14 @@ class Recorder {
   void record_settled(const dsp::SettledFrame& frame);
   void record_stats(const protocol::Stats& stats);
   void record_event(const protocol::Event& event);
+  // The input audio, in order, when record_audio is set (else ignored). Samples that do not fit in the
+  // queue are counted and written as silence later, so that audio.wav stays on the audio clock.
+  void record_audio(std::span<const float> samples);
 
   [[nodiscard]] std::filesystem::path folder() const { return folder_; }
   [[nodiscard]] std::int64_t lines_dropped() const { return dropped_.load(); }
   [[nodiscard]] std::int64_t lines_written() const { return written_.load(); }
+  [[nodiscard]] std::int64_t audio_samples_lost() const { return audio_lost_.load(); }
 
   // Session folders under sessions_dir without a summary (the daemon was killed): each gets its summary
   // (closed "recovered"), read back from its log; a torn last line is left out. Returns the folders closed.
@@ -95,6 +107,8 @@ class Recorder {
   bool write_out(std::deque<std::string>& lines);
   bool flush_files();
   void close_files() noexcept;
+  bool open_audio(std::string& failed);                                      // recorder thread
+  bool write_audio(const std::vector<float>& samples, std::string& failed);  // recorder thread
   void problem(const std::string& what);
 
   RecorderOptions options_;
@@ -103,6 +117,8 @@ class Recorder {
   std::string started_wall_;
   std::FILE* log_ = nullptr;
   std::FILE* csv_ = nullptr;
+  SNDFILE* audio_ = nullptr;            // audio.wav, when record_audio (recorder thread)
+  int audio_fd_ = -1;                   // its descriptor (libsndfile does not own it)
   bool failing_ = false;  // a problem was reported and has not cleared yet (recorder thread)
 
   std::mutex mutex_;
@@ -110,6 +126,12 @@ class Recorder {
   std::deque<std::string> queue_;
   std::deque<std::string> csv_queue_;
   std::deque<std::pair<std::string, std::string>> files_;  // whole files to write: name, content
+  std::vector<float> audio_queue_;
+  std::size_t audio_queue_max_ = 0;
+  bool audio_dropping_ = false;        // a chunk was lost: lose the rest until the queue is taken (order)
+  std::int64_t audio_silence_ = 0;     // samples lost since the queue was last taken (under mutex_)
+  std::int64_t audio_owed_ = 0;        // lost samples not yet written as silence (recorder thread)
+  std::atomic<std::int64_t> audio_lost_{0};
   int exercises_ended_ = 0;
   bool stop_requested_ = false;
   std::atomic<std::int64_t> dropped_{0}, written_{0};

@@ -44,7 +44,7 @@ enum class ClientType : std::uint8_t {
 enum class Role : std::uint8_t { kObserver, kLab, kSupervisor };
 enum class EventKind : std::uint8_t {
   kOverflow, kDeviceLost, kDeviceBack, kBandChanged, kBandCrossing,
-  kExerciseStarted, kExerciseEnded, kMarker, kDroppedFrames, kRecordingProblem, kReferenceChanged
+  kExerciseStarted, kExerciseEnded, kMarker, kDroppedFrames, kRecordingProblem, kReferenceChanged, kDoseLimit
 };
 enum class BandPosition : std::uint8_t { kBelow, kInside, kAbove, kUnvoiced };
 
@@ -61,9 +61,10 @@ inline constexpr std::array<std::string_view, 8> kServerTypeNames = {
 inline constexpr std::array<std::string_view, 8> kClientTypeNames = {
     "subscribe", "set_band", "clear_band", "start_exercise", "end_exercise", "mark", "ping", "set_reference"};
 inline constexpr std::array<std::string_view, 3> kRoleNames = {"observer", "lab", "supervisor"};
-inline constexpr std::array<std::string_view, 11> kEventKindNames = {
+inline constexpr std::array<std::string_view, 12> kEventKindNames = {
     "overflow", "device_lost", "device_back", "band_changed", "band_crossing",
-    "exercise_started", "exercise_ended", "marker", "dropped_frames", "recording_problem", "reference_changed"};
+    "exercise_started", "exercise_ended", "marker", "dropped_frames", "recording_problem", "reference_changed",
+    "dose_limit"};
 inline constexpr std::array<std::string_view, 4> kBandPositionNames = {"below", "inside", "above", "unvoiced"};
 inline constexpr std::array<std::string_view, 17> kErrorCodeNames = {
     "bad_json", "not_an_object", "unknown_type", "unknown_field", "missing_field", "wrong_type",
@@ -215,6 +216,7 @@ struct Hello {
   Role role = Role::kObserver;
   std::vector<Band> bands;
   std::optional<Exercise> exercise;  // the one running, if any
+  std::optional<double> spl_offset_db;  // level calibration (dB SPL = dBFS + offset); empty: none
   std::size_t max_message_bytes = kDefaultMaxMessageBytes;
 };
 
@@ -240,6 +242,10 @@ struct Stats {
   std::optional<double> f0_range_st;      // p5-p95 range in semitones
   std::optional<double> level_mean_dbfs;  // mean power of the window's frames, dBFS; empty when all silent
   std::optional<double> level_max_dbfs;   // loudest frame, dBFS
+  std::optional<double> level_mean_db_spl;  // the same + spl_offset_db; empty when not calibrated
+  std::optional<double> level_max_db_spl;
+  double session_voiced_s = 0.0;    // vocal dose since the run started: voiced settled time (time dose)
+  double session_cycle_dose = 0.0;  // and the sum of F0 x hop over voiced settled frames (cycle dose)
   std::vector<BandShare> bands;     // one per active band, in the order they were set
 };
 
@@ -266,6 +272,8 @@ struct Event {
 [[nodiscard]] Event reference_changed_event(double time_s, double reference_hz);
 // The session record cannot be written (or can again: resolved = true); the live stream goes on.
 [[nodiscard]] Event recording_problem_event(double time_s, std::string_view message, bool resolved);
+// A vocal dose limit of the run has been passed: measure "voiced_s" or "cycle_dose", the limit, the value.
+[[nodiscard]] Event dose_limit_event(double time_s, std::string_view measure, double limit, double value);
 
 // An error: what decode_request() returns for a bad request, and the `error` message sent for it.
 struct Error {
