@@ -9,7 +9,9 @@ protocol, adds a marker as a lab client, then kills the daemon with SIGKILL afte
 most one second before the last one a client received (the recorder flushes at least every second), and the
 marker; no summary yet. Then starts the daemon again and stops it with SIGTERM: the killed session gets its
 summary (closed "recovered", its frames counted from its log), the new one a summary of its own (closed
-"stopped").
+"stopped"). The first run also keeps its input audio (--record-audio --audio-consent): audio.wav is private
+and, although the daemon was killed, a readable WAV that reaches to within a second of the last frame a
+client received; the second run, without the flags, keeps no audio.
 """
 import argparse
 import asyncio
@@ -22,6 +24,7 @@ import subprocess
 import sys
 import tempfile
 import time
+import wave
 from pathlib import Path
 
 import websockets
@@ -36,8 +39,8 @@ def check(name, ok, detail=""):
     return ok
 
 
-def start(exe, config):
-    proc = subprocess.Popen([exe, "--input", "demo", "--port", "0", "--config", str(config)],
+def start(exe, config, extra=()):
+    proc = subprocess.Popen([exe, "--input", "demo", "--port", "0", "--config", str(config), *extra],
                             stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
     deadline = time.monotonic() + 15
     port = None
@@ -99,7 +102,7 @@ def main():
         config = tmp / "pitchwired.jsonc"
         config.write_text(json.dumps({"token_dir": str(tmp / "tokens"), "log_file": str(tmp / "pitchwired.log"),
                                       "session_dir": str(sessions)}), encoding="utf-8")
-        proc, port = start(args.daemon, config)
+        proc, port = start(args.daemon, config, ["--record-audio", "--audio-consent"])
         try:
             lab_token = (tmp / "tokens" / "lab.token").read_text(encoding="utf-8").strip()
             last_received = asyncio.run(listen(port, lab_token, 4.0))
@@ -132,6 +135,22 @@ def main():
                   and pl["wall"].endswith("Z"), str(pl))
         check("the log's first line says what it is", log and log[0].get("type") == "session"
               and log[0].get("format") == "pitchwire.session.v1", str(log[:1]))
+        audio = first / "audio.wav"
+        if check("the input audio is kept (--record-audio --audio-consent), named in the log's first line",
+                 audio.exists() and log and log[0].get("audio_file") == "audio.wav", str(log[:1])):
+            check("audio.wav is private (0600)", mode(audio) == 0o600, f"{mode(audio):o}")
+            try:
+                with wave.open(str(audio), "rb") as w:
+                    rate, width, channels, frames = w.getframerate(), w.getsampwidth(), w.getnchannels(), w.getnframes()
+                    data = w.readframes(frames)
+                seconds = frames / rate
+                check("audio.wav of the killed run is a readable 24-bit mono WAV at the demo's 16 kHz",
+                      (rate, width, channels) == (16000, 3, 1) and len(data) == frames * 3, f"{rate} {width} {channels}")
+                check("it reaches to within 1 s of the last frame a client received (header kept up to date)",
+                      last_received is not None and seconds >= last_received - 1.0, f"{seconds:.3f} s vs {last_received}")
+                check("it holds the voice, not silence", any(b != 0 for b in data[: 3 * 16000 * 2]))
+            except (wave.Error, EOFError) as e:
+                check("audio.wav of the killed run is readable", False, str(e))
 
         # Start again: the killed session is closed from its log; the new one gets its own folder.
         proc, port = start(args.daemon, config)
@@ -153,6 +172,7 @@ def main():
             s2 = json.loads((second / "summary.json").read_text(encoding="utf-8")) if (second / "summary.json").exists() else {}
             check("the second run's summary says it was stopped", s2.get("closed") == "stopped" and s2.get("frames", 0) > 0,
                   str(s2))
+            check("the second run, without --record-audio, keeps no audio", not (second / "audio.wav").exists())
         log_text = (tmp / "pitchwired.log").read_text(encoding="utf-8", errors="replace")
         check("the daemon's log names the session it closed", first.name in log_text and "was not closed" in log_text)
     print("PASS" if not failures else f"{len(failures)} check(s) failed")
