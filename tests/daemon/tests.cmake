@@ -41,3 +41,9 @@ include(${CMAKE_CURRENT_LIST_DIR}/protocol_live.cmake)
 add_test(NAME daemon.session_record
          COMMAND ${PITCHWIRE_PYTHON_WS} ${CMAKE_CURRENT_LIST_DIR}/session_record_test.py --daemon $<TARGET_FILE:pitchwired>)
 set_tests_properties(daemon.session_record PROPERTIES LABELS daemon TIMEOUT 120)
+
+# A supervised exercise end to end on a tone of known pitch and level: calibrated level, doses and their limit,
+# the preset's band around the reference, the exercise summary and its file (exercise_e2e_test.py).
+add_test(NAME daemon.exercise_e2e
+         COMMAND ${PITCHWIRE_PYTHON_WS} ${CMAKE_CURRENT_LIST_DIR}/exercise_e2e_test.py --daemon $<TARGET_FILE:pitchwired>)
+set_tests_properties(daemon.exercise_e2e PROPERTIES LABELS daemon TIMEOUT 120 ENVIRONMENT LD_BIND_NOW=1)
