@@ -236,6 +236,9 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
     if (options.on_event_sent) options.on_event_sent(event);
     broadcast(protocol::encode(event));
   }
+  // Network thread. Ends the running exercise: its exercise_ended event with the summary, to be sent, with
+  // `by` the role that ended it (empty: the daemon, at stop); empty when no exercise is running.
+  std::optional<protocol::Event> end_exercise(std::optional<protocol::Role> by);
   const std::vector<std::shared_ptr<WsSession>>& snapshot();
   void add_session(const std::shared_ptr<WsSession>& s);
   void remove_session(const WsSession* s);
@@ -605,27 +608,13 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
   }
 
   void handle(protocol::EndExercise& r) {
-    protocol::Exercise exercise;
-    std::optional<ExerciseSummary> measures;
-    std::vector<std::string> measure_names;
-    const double now = server_->now_audio();
-    {
-      std::lock_guard lock(server_->state_mutex);
-      if (!server_->exercise) {
-        refuse({protocol::ErrorCode::kNoExercise, "no exercise is running", r.id});
-        return;
-      }
-      exercise = *server_->exercise;
-      server_->exercise.reset();
-      // Taken out under the lock, summarised after it: the analysis thread never waits for the sorting.
-      const std::lock_guard summary_lock(server_->exercise_mutex);
-      server_->exercise_running.store(false);
-      measures = std::exchange(server_->exercise_summary, std::nullopt);
-      measure_names = server_->exercise_measures;
+    std::optional<protocol::Event> ended = server_->end_exercise(role_);
+    if (!ended) {
+      refuse({protocol::ErrorCode::kNoExercise, "no exercise is running", r.id});
+      return;
     }
-    protocol::Json summary = measures ? measures->to_json(now - exercise.started_s, measure_names) : protocol::Json::object();
     ack(r.id, protocol::ClientType::kEndExercise);
-    server_->broadcast_event(by_me(protocol::exercise_ended_event(now, exercise, std::move(summary))));
+    server_->broadcast_event(*ended);
   }
 
   // An event caused by this connection's request: it says which role made the change.
@@ -1112,6 +1101,12 @@ void Server::stop() noexcept {
       beast::error_code ignored;
       impl->acceptor.close(ignored);
       impl->accept_timer.cancel();
+      // An exercise still running is ended by the daemon, so that its summary reaches every connection
+      // and the session record before they close.
+      if (auto ended = impl->end_exercise(std::nullopt)) {
+        spdlog::info("exercise \"{}\" was running at stop: ended and summarised", ended->payload.value("preset", ""));
+        impl->broadcast_event(*ended);
+      }
       for (const auto& s : impl->snapshot()) {
         s->close(websocket::close_code::going_away, "pitchwired is stopping", true);
       }
@@ -1190,6 +1185,28 @@ void Server::on_event(const protocol::Event& event) {
     spdlog::debug("{} at {:.3f} s: {}", protocol::name(event.kind), event.time_s, event.payload.dump());
   }
   impl_->post_event(event);
+}
+
+std::optional<protocol::Event> Server::Impl::end_exercise(std::optional<protocol::Role> by) {
+  protocol::Exercise ended;
+  std::optional<ExerciseSummary> measures;
+  std::vector<std::string> measure_names;
+  const double now = now_audio();
+  {
+    std::lock_guard lock(state_mutex);
+    if (!exercise) return std::nullopt;
+    ended = *exercise;
+    exercise.reset();
+    // Taken out under the lock, summarised after it: the analysis thread never waits for the sorting.
+    const std::lock_guard summary_lock(exercise_mutex);
+    exercise_running.store(false);
+    measures = std::exchange(exercise_summary, std::nullopt);
+    measure_names = exercise_measures;
+  }
+  protocol::Json summary = measures ? measures->to_json(now - ended.started_s, measure_names) : protocol::Json::object();
+  protocol::Event event = protocol::exercise_ended_event(now, ended, std::move(summary));
+  event.by = by;
+  return event;
 }
 
 void Server::on_end() {

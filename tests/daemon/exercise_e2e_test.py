@@ -19,7 +19,9 @@ is the reference +-1 semitone), lets it run about 3 s and ends it. Checks:
   2 cents, p5-p95 range and SD under 0.05 semitone, cycle dose = F0 x voiced time within 1 %, every voiced
   frame inside the band, the preset's measures; who ended it (supervisor);
 - the exercise's file in the session folder (private, 0600) holds the same summary, and the session log
-  holds the exercise and dose events.
+  holds the exercise and dose events;
+- a second exercise left running when the daemon gets SIGTERM is ended by the daemon (no `by`): its summary
+  reaches the connection before the close, and its file is written.
 """
 import argparse
 import asyncio
@@ -109,7 +111,7 @@ class Conn:
         return await self.wait(lambda m: m.get("id") == msg["id"] and m.get("type") in ("ack", "error"), timeout, start)
 
 
-async def session(port, token):
+async def session(port, token, proc):
     url = f"ws://127.0.0.1:{port}/ws"
     kw = {"subprotocols": ["pitchwire.v1"], "origin": f"http://127.0.0.1:{port}"}
     async with websockets.connect(f"{url}?token={token}", **kw) as ws:
@@ -138,7 +140,17 @@ async def session(port, token):
         check("end_exercise -> ack and exercise_ended by the supervisor", ack and ack.get("type") == "ack" and ended
               and ended.get("by") == "supervisor", str(ended)[:200])
         await asyncio.sleep(0.7)  # one more stats message
-        sup.task.cancel()
+        # A second exercise is still running when the daemon is told to stop: the daemon ends it (no `by`)
+        # and its summary reaches the connection before the close.
+        mark = len(sup.messages)
+        await sup.request({"type": "start_exercise", "id": "x3", "preset": "reading"})
+        await asyncio.sleep(0.5)
+        proc.send_signal(signal.SIGTERM)
+        at_stop = await sup.wait(lambda m: m.get("type") == "event" and m.get("kind") == "exercise_ended", 5, mark)
+        check("an exercise running at SIGTERM is ended by the daemon (no `by`) and its summary sent before the close",
+              at_stop is not None and at_stop["payload"]["preset"] == "reading" and "by" not in at_stop
+              and at_stop["payload"]["summary"].get("voiced_s", 0) > 0.3, str(at_stop)[:200])
+        await asyncio.wait_for(sup.task, 5)
         return sup.messages, started, ended
 
 
@@ -208,6 +220,10 @@ def check_record(sessions, ended):
             continue
         if line.get("type") == "event":
             kinds.append(line.get("kind"))
+    stopped = folder / "exercise-02-reading.json"
+    if check("the exercise ended at stop has its file too", stopped.exists(), str(sorted(os.listdir(folder)))):
+        saved = json.loads(stopped.read_text(encoding="utf-8"))
+        check("which says no role ended it (the daemon did)", "by" not in saved and saved.get("preset") == "reading", str(saved)[:200])
     check("the session log holds the exercise, reference and dose events",
           all(k in kinds for k in ("reference_changed", "exercise_started", "band_changed", "exercise_ended", "dose_limit")),
           str(kinds))
@@ -229,7 +245,7 @@ def main():
         proc, port = start(args.daemon, config, tone)
         try:
             token = (tmp / "tokens" / "supervisor.token").read_text(encoding="utf-8").strip()
-            messages, started, ended = asyncio.run(session(port, token))
+            messages, started, ended = asyncio.run(session(port, token, proc))
         finally:
             proc.send_signal(signal.SIGTERM)
             code = proc.wait(10)

@@ -10,6 +10,7 @@
 
 #include "analyze.h"
 #include "demo.h"
+#include "report.h"
 #include "pitchwire/dsp/pitch_tracker.h"
 
 #ifndef PITCHWIRE_VERSION
@@ -69,6 +70,18 @@ int run(int argc, char** argv) {
       app.add_subcommand("demo", "Track the built-in test voice and print a summary of its pitch");
   demo_cmd->add_option("--csv", demo.csv_path, "Also write the settled frames to this CSV file");
 
+  ReportOptions report;
+  CLI::App* report_cmd = app.add_subcommand(
+      "report", "Write a self-contained HTML report of a recorded session (docs/sessions.md, \"Report\")");
+  report_cmd->add_option("SESSION_DIR", report.session_dir, "Session folder (holds session.jsonl)")->required();
+  report_cmd->add_option("-o,--out", report.out_path,
+                         "HTML file to write, mode 0600 (default: report.html in SESSION_DIR; replaced if present)");
+  report_cmd
+      ->add_option("--max-points", report.max_points,
+                   "Most points of the F0 contour; longer sessions are reduced to medians of buckets of frames "
+                   "(default " + std::to_string(report.max_points) + ")")
+      ->check(CLI::Range(std::size_t{100}, std::size_t{1000000}));
+
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
@@ -85,6 +98,7 @@ int run(int argc, char** argv) {
     }
     return run_analyze(analyze);
   }
+  if (report_cmd->parsed()) return run_report(report);
   return run_demo(demo);
 }
 
