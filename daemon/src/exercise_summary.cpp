@@ -2,6 +2,8 @@
 #include "pitchwire/daemon/exercise_summary.h"
 
 #include <algorithm>
+#include <array>
+#include <string>
 #include <cmath>
 
 #include "pitchwire/dsp/band_tracker.h"
@@ -28,7 +30,8 @@ void ExerciseSummary::add(std::optional<float> f0_hz, const std::vector<protocol
   cycles_ += static_cast<double>(*f0_hz) * hop_s_;
 }
 
-protocol::Json ExerciseSummary::to_json(double duration_s, const std::vector<std::string>& measures) const {
+protocol::Json ExerciseSummary::to_json(double duration_s, const std::vector<std::string>& measures,
+                                        double reference_hz) const {
   protocol::Json j;
   const auto voiced = static_cast<std::int64_t>(f0s_.size());
   j["duration_s"] = round3(duration_s);
@@ -42,9 +45,18 @@ protocol::Json ExerciseSummary::to_json(double duration_s, const std::vector<std
   auto put = [&](const char* key, std::optional<double> v) {
     j[key] = v ? protocol::Json(round3(*v)) : protocol::Json(nullptr);
   };
-  put("f0_p5_hz", range ? std::optional<double>(range->p5_hz) : std::nullopt);
-  put("f0_p50_hz", range ? std::optional<double>(range->median_hz) : std::nullopt);
-  put("f0_p95_hz", range ? std::optional<double>(range->p95_hz) : std::nullopt);
+  const std::array<std::pair<const char*, std::optional<double>>, 5> points = {{
+      {"min", range ? std::optional<double>(f0s.front()) : std::nullopt},
+      {"p5", range ? std::optional<double>(range->p5_hz) : std::nullopt},
+      {"p50", range ? std::optional<double>(range->median_hz) : std::nullopt},
+      {"p95", range ? std::optional<double>(range->p95_hz) : std::nullopt},
+      {"max", range ? std::optional<double>(f0s.back()) : std::nullopt},
+  }};
+  for (const auto& [name, hz] : points) put(("f0_" + std::string(name) + "_hz").c_str(), hz);
+  j["reference_hz"] = reference_hz;
+  for (const auto& [name, hz] : points) {
+    put(("f0_" + std::string(name) + "_st").c_str(), hz ? std::optional<double>(12.0 * std::log2(*hz / reference_hz)) : std::nullopt);
+  }
   put("f0_range_st", range ? std::optional<double>(12.0 * std::log2(range->p95_hz / range->p5_hz)) : std::nullopt);
   put("f0_sd_st", sd);
   protocol::Json bands = protocol::Json::array();

@@ -253,6 +253,7 @@ int run(const pw::DaemonConfig& config) {
   pipeline_options.stats_window_s = config.stats_window_s;
   pipeline_options.band_dwell_s = config.band_dwell_s;
   pipeline_options.stability_window_s = config.stability_window_s;
+  pipeline_options.reference_hz = config.reference_hz;
   pipeline_options.spl_offset_db = config.spl_offset_db;
   pipeline_options.dose_limit_voiced_s = config.dose_limit_voiced_s;
   pipeline_options.dose_limit_cycles = config.dose_limit_cycles;
@@ -299,6 +300,9 @@ int run(const pw::DaemonConfig& config) {
   // The network thread starts in server.start(), after the pipeline exists.
   options.on_bands = [&pipeline](std::vector<pitchwire::protocol::Band> bands) {
     if (pipeline) pipeline->set_bands(std::move(bands));
+  };
+  options.on_reference = [&pipeline](double reference_hz) {
+    if (pipeline) pipeline->set_reference(reference_hz);
   };
   pw::Server server(options);
   server_for_problems = &server;

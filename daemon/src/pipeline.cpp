@@ -40,8 +40,8 @@ struct FollowedBand {
 class Forwarder final : public dsp::FrameSink {
  public:
   Forwarder(PipelineListener& listener, const PipelineOptions& options, std::atomic<std::int64_t>& frames,
-            BandSlot& band_slot)
-      : listener_(listener), frames_(frames), options_(options), band_slot_(band_slot) {
+            BandSlot& band_slot, const std::atomic<double>& reference_hz)
+      : listener_(listener), frames_(frames), options_(options), band_slot_(band_slot), reference_hz_(reference_hz) {
     hop_s_ = options.tracker.hop_ms / 1000.0;
     stats_frames_ = static_cast<std::size_t>(std::ceil(options.stats_window_s / hop_s_ - 1e-9));
     stability_frames_ = static_cast<std::size_t>(std::ceil(options.stability_window_s / hop_s_ - 1e-9));
@@ -120,6 +120,14 @@ class Forwarder final : public dsp::FrameSink {
       s.f0_min_hz = round3(scratch_.front());
       s.f0_max_hz = round3(scratch_.back());
       s.f0_range_st = round3(12.0 * std::log2(range->p95_hz / range->p5_hz));
+      const double ref = reference_hz_.load(std::memory_order_relaxed);
+      auto st = [&](double hz) { return round3(12.0 * std::log2(hz / ref)); };
+      s.reference_hz = ref;
+      s.f0_min_st = st(scratch_.front());
+      s.f0_p5_st = st(range->p5_hz);
+      s.f0_p50_st = st(range->median_hz);
+      s.f0_p95_st = st(range->p95_hz);
+      s.f0_max_st = st(scratch_.back());
     }
     // Level over the window: the mean of the frames' power (an equivalent level, common practice) and the
     // loudest frame, in dBFS (AES17: a full-scale sine is 0 dBFS); frames at the -200 dBFS floor are
@@ -195,6 +203,7 @@ class Forwarder final : public dsp::FrameSink {
   std::vector<double> scratch_;
   std::int64_t interval_frames_ = 1;
   BandSlot& band_slot_;
+  const std::atomic<double>& reference_hz_;
   std::uint64_t bands_version_ = 0;
   std::vector<FollowedBand> bands_;
 };
@@ -209,6 +218,7 @@ Pipeline::~Pipeline() { stop(); }
 
 void Pipeline::start() {
   options_.tracker.sample_rate_hz = source_.sample_rate_hz();
+  reference_hz_.store(options_.reference_hz);
   tracker_ = std::make_unique<dsp::PitchTracker>(options_.tracker);
   stop_requested_.store(false);
   thread_ = std::thread([this] { run(); });
@@ -231,7 +241,7 @@ double Pipeline::audio_time_s() const {
 
 void Pipeline::run() {
   pthread_setname_np(pthread_self(), "pw-analysis");
-  Forwarder forwarder(listener_, options_, frames_, bands_);
+  Forwarder forwarder(listener_, options_, frames_, bands_, reference_hz_);
   std::vector<float> chunk(kReadChunk);
   // Samples the ring could not take are analysed as silence where they were lost, so that frame times
   // stay on the capture clock; subscribers are told how many were lost.

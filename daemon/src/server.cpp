@@ -213,6 +213,7 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
   std::vector<protocol::Band> exercise_bands;
   std::vector<std::string> exercise_measures;
   std::atomic<bool> exercise_running{false};
+  double exercise_from_s = 0.0;  // settled frames from this time on count (they arrive a settle lag late)
   // The reference pitch for semitone limits: set_reference changes it (network thread only).
   double reference_hz = 0.0;
   void mirror_bands(const std::vector<protocol::Band>& now) {
@@ -475,6 +476,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
 
   void handle(protocol::SetReference& r) {
     server_->reference_hz = r.reference_hz;
+    if (server_->options.on_reference) server_->options.on_reference(r.reference_hz);
     ack(r.id, protocol::ClientType::kSetReference);
     server_->broadcast_event(by_me(protocol::reference_changed_event(server_->now_audio(), r.reference_hz)));
   }
@@ -594,6 +596,7 @@ class WsSession : public std::enable_shared_from_this<WsSession> {
       server_->exercise = exercise;
       const std::lock_guard summary_lock(server_->exercise_mutex);
       server_->exercise_summary.emplace(server_->options.hello.hop_ms / 1000.0);
+      server_->exercise_from_s = exercise.started_s;
       server_->exercise_bands = bands;
       server_->exercise_measures = preset->measures;
       server_->exercise_running.store(true);
@@ -1164,7 +1167,9 @@ void Server::on_live(const dsp::LiveFrame& frame) {
 void Server::on_settled(const dsp::SettledFrame& frame) {
   if (impl_->exercise_running.load(std::memory_order_acquire)) {
     const std::lock_guard lock(impl_->exercise_mutex);
-    if (impl_->exercise_summary) impl_->exercise_summary->add(frame.f0_hz, impl_->exercise_bands);
+    if (impl_->exercise_summary && frame.time_s >= impl_->exercise_from_s) {
+      impl_->exercise_summary->add(frame.f0_hz, impl_->exercise_bands);
+    }
   }
   auto batch = std::make_shared<SettledBatch>();
   batch->index = frame.index;
@@ -1203,7 +1208,7 @@ std::optional<protocol::Event> Server::Impl::end_exercise(std::optional<protocol
     measures = std::exchange(exercise_summary, std::nullopt);
     measure_names = exercise_measures;
   }
-  protocol::Json summary = measures ? measures->to_json(now - ended.started_s, measure_names) : protocol::Json::object();
+  protocol::Json summary = measures ? measures->to_json(now - ended.started_s, measure_names, reference_hz) : protocol::Json::object();
   protocol::Event event = protocol::exercise_ended_event(now, ended, std::move(summary));
   event.by = by;
   return event;

@@ -170,6 +170,9 @@ def check_stats(messages):
               s["level_mean_db_spl"] is not None and abs(s["level_mean_db_spl"] - s["level_mean_dbfs"] - SPL_OFFSET) < 0.011
               and abs(s["level_max_db_spl"] - s["level_max_dbfs"] - SPL_OFFSET) < 0.011,
               f"{s['level_mean_db_spl']} {s['level_mean_dbfs']}")
+        check(f"stats at {s['time_s']:.2f} s: semitones re the reference set (G3): median 0 within 0.02",
+              s["reference_hz"] is not None and abs(s["reference_hz"] - G3) < 0.001 and abs(s["f0_p50_st"]) < 0.02,
+              f"{s['reference_hz']} {s['f0_p50_st']}")
         dose, voiced = s["session_cycle_dose"], s["session_voiced_s"]
         check(f"stats at {s['time_s']:.2f} s: session cycle dose = 195.998 Hz x time dose within 0.5 %",
               voiced > 2 and abs(dose - G3 * voiced) < 0.005 * G3 * voiced, f"{dose} cycles, {voiced} s")
@@ -190,6 +193,11 @@ def check_summary(started, ended):
     check("summary: voiced_fraction near 1 (a steady tone; a settle lag's worth of frames at each end)",
           s["voiced_fraction"] > 0.97, str(s["voiced_fraction"]))
     check("summary: median F0 = G3 (195.998 Hz) within 2 cents", abs(cents(s["f0_p50_hz"], G3)) < 2, str(s["f0_p50_hz"]))
+    check("summary: min, p5, median, p95 and max within 0.05 semitone of 0 re the reference G3, which it names",
+          abs(s["reference_hz"] - G3) < 0.001
+          and all(abs(s[f"f0_{k}_st"]) < 0.05 for k in ("min", "p5", "p50", "p95", "max"))
+          and abs(cents(s["f0_min_hz"], G3)) < 5 and abs(cents(s["f0_max_hz"], G3)) < 5,
+          json.dumps({k: s[k] for k in s if k.endswith("_st") or k.startswith("f0_m") or k == "reference_hz"}))
     check("summary: p5-p95 range and SD under 0.05 semitone (a steady tone)",
           s["f0_range_st"] < 0.05 and s["f0_sd_st"] < 0.05, f"{s['f0_range_st']} {s['f0_sd_st']}")
     check("summary: cycle dose = F0 x voiced time within 1 % (Titze, Svec & Popolo 2003)",

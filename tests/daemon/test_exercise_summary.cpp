@@ -3,6 +3,7 @@
 
 #include <gtest/gtest.h>
 
+#include <array>
 #include <cmath>
 
 namespace pitchwire::daemon {
@@ -44,6 +45,17 @@ TEST(ExerciseSummary, AGlideBetweenKnownNotesHasAKnownRange) {
   EXPECT_NEAR(j["f0_range_st"].get<double>(), 10.8, 0.002);
   EXPECT_NEAR(j["f0_p5_hz"].get<double>(), 100.0 * std::exp2(0.6 / 12.0), 0.002);
   EXPECT_NEAR(j["f0_p95_hz"].get<double>(), 100.0 * std::exp2(11.4 / 12.0), 0.002);
+  // Min and max are the glide's ends, 100 and 200 Hz; in semitones re the default reference of 100 Hz
+  // (12 log2(f / 100)) the points are 0, 0.6, 6, 11.4 and 12.
+  EXPECT_NEAR(j["f0_min_hz"].get<double>(), 100.0, 0.002);
+  EXPECT_NEAR(j["f0_max_hz"].get<double>(), 200.0, 0.002);
+  EXPECT_EQ(j["reference_hz"].get<double>(), 100.0);
+  const std::array<std::pair<const char*, double>, 5> st = {
+      {{"f0_min_st", 0.0}, {"f0_p5_st", 0.6}, {"f0_p50_st", 6.0}, {"f0_p95_st", 11.4}, {"f0_max_st", 12.0}}};
+  for (const auto& [key, want] : st) EXPECT_NEAR(j[key].get<double>(), want, 0.002) << key;
+  // Re a reference an octave up (200 Hz), every semitone value is 12 lower.
+  const protocol::Json up = s.to_json(6.0, {}, 200.0);
+  for (const auto& [key, want] : st) EXPECT_NEAR(up[key].get<double>(), want - 12.0, 0.002) << key;
   ASSERT_EQ(j["bands"].size(), 2u);
   EXPECT_EQ(j["bands"][0]["name"], "low");
   EXPECT_NEAR(j["bands"][0]["inside_fraction"].get<double>(), 600.0 / 1201.0, 0.001);  // 0..6 st of 0..12 st
@@ -56,6 +68,7 @@ TEST(ExerciseSummary, NoVoicedFrameGivesNullsNotNumbers) {
   for (int i = 0; i < 10; ++i) s.add(std::nullopt, {{"target", 190.0, 210.0}});
   const protocol::Json j = s.to_json(0.05, {});
   EXPECT_TRUE(j["f0_p50_hz"].is_null());
+  EXPECT_TRUE(j["f0_min_st"].is_null() && j["f0_max_hz"].is_null());
   EXPECT_TRUE(j["f0_sd_st"].is_null());
   EXPECT_TRUE(j["bands"][0]["inside_fraction"].is_null());
   EXPECT_DOUBLE_EQ(j["cycle_dose"].get<double>(), 0.0);

@@ -295,6 +295,7 @@ TEST(Pipeline, DosesStabilityWindowAndCalibratedLevel) {
   options.stability_window_s = 1.0;
   options.stats_interval_s = 0.25;
   options.spl_offset_db = 100.0;
+  options.reference_hz = 400.0;  // semitone values re 400 Hz: 200 Hz is -12 st
   options.dose_limit_voiced_s = 1.5;
   options.dose_limit_cycles = 300.0;
   Pipeline pipeline(ring, source, options, collector);
@@ -317,6 +318,11 @@ TEST(Pipeline, DosesStabilityWindowAndCalibratedLevel) {
       EXPECT_NEAR(st.session_cycle_dose, 400.0, 4.0);
       EXPECT_LE(st.session_cycle_dose, 400.5);
       EXPECT_NEAR(st.session_voiced_s, 2.0, 0.02);
+      ASSERT_TRUE(st.reference_hz && st.f0_min_st && st.f0_p50_st && st.f0_max_st);
+      EXPECT_EQ(*st.reference_hz, 400.0);
+      EXPECT_NEAR(*st.f0_p50_st, -12.0, 0.01);  // 12 log2(200 / 400)
+      EXPECT_NEAR(*st.f0_min_st, -12.0, 0.1);  // the extremes hold the onset's frames: within 10 cents
+      EXPECT_NEAR(*st.f0_max_st, -12.0, 0.1);
       saw_dose = true;
     }
     if (st.time_s > 3.3 && st.time_s < 3.95) {  // the last second is all vibrato

@@ -120,6 +120,12 @@ int main() {
   stats.f0_min_hz = 140.2;
   stats.f0_max_hz = 262.9;
   stats.f0_range_st = 8.018;
+  stats.reference_hz = 100.0;
+  stats.f0_min_st = 5.85;
+  stats.f0_p5_st = 7.135;
+  stats.f0_p50_st = 10.415;
+  stats.f0_p95_st = 15.156;
+  stats.f0_max_st = 16.734;
   stats.level_mean_dbfs = -23.41;
   stats.level_max_dbfs = -12.07;
   server(pw::encode(stats));
@@ -146,7 +152,9 @@ int main() {
   server(pw::encode(pw::exercise_ended_event(
       35.0, exercise,
       Json{{"duration_s", 15.0}, {"settled_s", 15.0}, {"voiced_s", 11.2}, {"voiced_fraction", 0.747}, {"cycle_dose", 2284.6},
-           {"f0_p5_hz", 196.2}, {"f0_p50_hz", 203.9}, {"f0_p95_hz", 211.0}, {"f0_range_st", 1.259}, {"f0_sd_st", 0.38},
+           {"f0_p5_hz", 196.2}, {"f0_p50_hz", 203.9}, {"f0_p95_hz", 211.0}, {"f0_min_hz", 188.4}, {"f0_max_hz", 216.3},
+           {"reference_hz", 195.998}, {"f0_min_st", -0.684}, {"f0_p5_st", 0.018}, {"f0_p50_st", 0.684},
+           {"f0_p95_st", 1.277}, {"f0_max_st", 1.706}, {"f0_range_st", 1.259}, {"f0_sd_st", 0.38},
            {"bands", Json::array({Json{{"name", "target"}, {"inside_fraction", 0.912}}})},
            {"measures", Json::array({"f0_sd_st", "voiced_s", "inside_fraction"})}})));
   server(pw::encode(pw::dropped_frames_event(36.0, 17)));

@@ -23,10 +23,12 @@ class ExerciseSummary {
   void add(std::optional<float> f0_hz, const std::vector<protocol::Band>& bands);
 
   // The summary: duration_s (given: the exercise's time on the audio clock), settled_s, voiced_s,
-  // voiced_fraction, cycle_dose, f0_p5_hz, f0_p50_hz, f0_p95_hz, f0_range_st, f0_sd_st, and per band
-  // (every band active during the exercise, in the order first seen) its inside_fraction; measures: the
-  // preset's list, copied.
-  [[nodiscard]] protocol::Json to_json(double duration_s, const std::vector<std::string>& measures) const;
+  // voiced_fraction, cycle_dose, f0_min_hz, f0_p5_hz, f0_p50_hz, f0_p95_hz, f0_max_hz, the same in semitones
+  // re reference_hz (f0_min_st ... f0_max_st, 12 log2(f / reference_hz)) with reference_hz, f0_range_st,
+  // f0_sd_st, and per band (every band active during the exercise, in the order first seen) its
+  // inside_fraction; measures: the preset's list, copied.
+  [[nodiscard]] protocol::Json to_json(double duration_s, const std::vector<std::string>& measures,
+                                       double reference_hz = 100.0) const;
 
  private:
   double hop_s_;

@@ -43,6 +43,7 @@ struct PipelineOptions {
   double stats_window_s = 5.0;    // over the settled frames of this many seconds
   double band_dwell_s = 0.25;     // band state hysteresis (dsp::BandTracker)
   double stability_window_s = 2.0;  // the F0 SD over the settled frames of this many seconds
+  double reference_hz = 100.0;      // semitone values in stats are 12 log2(f / reference_hz)
   std::optional<double> spl_offset_db;        // dB SPL = dBFS + offset; empty: levels in dBFS only
   std::optional<double> dose_limit_voiced_s;  // a dose_limit event when the run's voiced time passes it
   std::optional<double> dose_limit_cycles;    // and when its cycle dose does
@@ -77,6 +78,8 @@ class Pipeline {
   // The target bands from now on (limits in Hz, checked by the caller). The analysis thread picks them up
   // at its next frame; a band kept with the same name and limits keeps its state.
   void set_bands(std::vector<protocol::Band> bands);
+  // The reference pitch of the semitone values in stats from the next stats on. Any thread.
+  void set_reference(double reference_hz) { reference_hz_.store(reference_hz, std::memory_order_relaxed); }
 
  private:
   void run();
@@ -91,6 +94,7 @@ class Pipeline {
   std::atomic<std::int64_t> samples_{0};
   std::atomic<std::int64_t> frames_{0};
   BandSlot bands_;
+  std::atomic<double> reference_hz_{100.0};
 };
 
 }  // namespace pitchwire::daemon

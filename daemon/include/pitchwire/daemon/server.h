@@ -45,6 +45,7 @@ struct ServerOptions {
   std::function<double()> audio_clock;  // seconds on the audio clock now (Pipeline::audio_time_s)
   // Called on the network thread with every band set after a set_band or clear_band (Pipeline::set_bands).
   std::function<void(std::vector<protocol::Band>)> on_bands;
+  std::function<void(double reference_hz)> on_reference;  // network thread: set_reference was accepted
   // Called with every event sent to all connections, on the thread it arises on (network, analysis or a
   // source's monitor), before it is queued: the session record (Recorder::record_event, thread-safe).
   std::function<void(const protocol::Event&)> on_event_sent;

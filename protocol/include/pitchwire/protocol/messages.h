@@ -240,6 +240,8 @@ struct Stats {
   std::optional<double> f0_min_hz;  // lowest and highest voiced F0 of the window
   std::optional<double> f0_max_hz;
   std::optional<double> f0_range_st;      // p5-p95 range in semitones
+  std::optional<double> reference_hz;     // of the semitone values below (empty with no voiced frame)
+  std::optional<double> f0_min_st, f0_p5_st, f0_p50_st, f0_p95_st, f0_max_st;  // 12 log2(f / reference_hz)
   std::optional<double> level_mean_dbfs;  // mean power of the window's frames, dBFS; empty when all silent
   std::optional<double> level_max_dbfs;   // loudest frame, dBFS
   std::optional<double> level_mean_db_spl;  // the same + spl_offset_db; empty when not calibrated
