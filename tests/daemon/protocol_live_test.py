@@ -860,6 +860,19 @@ async def test_requests(ctx):
         check("the summary's duration_s matches the exercise's time on the audio clock",
               abs(summary["duration_s"] - (ev["time_s"] - started)) < 0.05 and summary["duration_s"] > 0.3,
               "docs/measures.md; event time_s", short(summary))
+        # The demo voice's own frames: the summary's numbers must agree with each other by their definitions.
+        d, st, vs = summary["duration_s"], summary.get("settled_s", -1), summary.get("voiced_s", -1)
+        check("settled_s: the frames from the start, short of the end by at most the settle lag (~80 ms + a hop)",
+              d - 0.15 <= st <= d + 0.006 and 0 <= vs <= st + 1e-9, "docs/measures.md 'Which frames count'", short(summary))
+        if vs > 0 and summary.get("f0_min_hz") and summary.get("f0_max_hz"):
+            lo, hi, ref_hz = summary["f0_min_hz"], summary["f0_max_hz"], summary.get("reference_hz")
+            check("cycle dose lies between min F0 x voiced time and max F0 x voiced time (sum of F0 x hop)",
+                  lo * vs - 0.1 <= summary["cycle_dose"] <= hi * vs + 0.1, "Titze, Svec & Popolo 2003", short(summary))
+            check("min <= p5 <= median <= p95 <= max, and each semitone value is 12 log2(f / reference_hz)",
+                  lo <= summary["f0_p5_hz"] <= summary["f0_p50_hz"] <= summary["f0_p95_hz"] <= hi and ref_hz
+                  and all(abs(summary[f"f0_{k}_st"] - 12 * math.log2(summary[f"f0_{k}_hz"] / ref_hz)) < 0.002
+                          for k in ("min", "p5", "p50", "p95", "max")),
+                  "docs/measures.md", short(summary))
     err = await sup.request({"type": "end_exercise", "id": "x-4"})
     check("end_exercise again -> no_exercise", err and err.get("code") == "no_exercise", ref + " end_exercise", short(err))
 
