@@ -52,3 +52,10 @@ add_test(NAME report.browser
                  --pitchwire $<TARGET_FILE:pitchwire> --modules ${PITCHWIRE_REPORT_NODE_DIR}
                  --chromium ${PITCHWIRE_CHROMIUM} --out ${PITCHWIRE_REPORT_NODE_DIR}/out)
 set_tests_properties(report.browser PROPERTIES FIXTURES_REQUIRED pitchwire_report_node LABELS report TIMEOUT 120)
+
+# The terminal commands against a running daemon on the demo voice, `watch` under a pseudo-terminal
+# (cli_live_test.py).
+add_test(NAME cli.live
+         COMMAND ${PITCHWIRE_PYTHON_WS} ${CMAKE_CURRENT_LIST_DIR}/cli_live_test.py --daemon $<TARGET_FILE:pitchwired>
+                 --pitchwire $<TARGET_FILE:pitchwire>)
+set_tests_properties(cli.live PROPERTIES LABELS cli TIMEOUT 180 ENVIRONMENT LD_BIND_NOW=1)

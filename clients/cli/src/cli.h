@@ -1,4 +1,5 @@
-// cli.h: the `pitchwire` command line (subcommands analyze, demo and report, --help, --version).
+// cli.h: the `pitchwire` command line (subcommands analyze, demo, report, watch, tail, mark, band, exercise,
+// reference, --help, --version).
 #pragma once
 
 namespace pitchwire::cli {
