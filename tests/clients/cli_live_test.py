@@ -26,36 +26,18 @@ import termios
 import time
 from pathlib import Path
 
-failures = []
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "support"))
+from pitchwired_process import check, finish, start, write_config  # noqa: E402
+
 ANSI = re.compile(r"\x1b\[[0-9;?]*[A-Za-z]")
 
 
-def check(name, ok, detail=""):
-    print(("PASS: " if ok else "FAIL: ") + name + (f" -- {detail}" if detail else ""))
-    if not ok:
-        failures.append(name)
-    return ok
 
 
 def free_port():
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
         return s.getsockname()[1]
-
-
-def start_daemon(exe, config):
-    proc = subprocess.Popen([exe, "--input", "demo", "--port", "0", "--config", str(config)],
-                            stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
-    deadline = time.monotonic() + 15
-    while time.monotonic() < deadline:
-        line = proc.stdout.readline()
-        if not line:
-            break
-        m = re.match(r"pitchwired: live page http://127\.0\.0\.1:(\d+)/", line)
-        if m:
-            return proc, int(m.group(1))
-    proc.kill()
-    raise RuntimeError("pitchwired did not print its live page URL within 15 s")
 
 
 def run(cmd, env=None, timeout=20):
@@ -103,10 +85,7 @@ def main():
     pw = args.pitchwire
     with tempfile.TemporaryDirectory(prefix="pitchwire-cli-") as tmp:
         tmp = Path(tmp)
-        config = tmp / "pitchwired.jsonc"
-        config.write_text(json.dumps({"token_dir": str(tmp / "tokens"), "log_file": str(tmp / "pitchwired.log"),
-                                      "session_dir": str(tmp / "sessions")}), encoding="utf-8")
-        proc, port = start_daemon(args.daemon, config)
+        proc, port = start(args.daemon, write_config(tmp))
         # No default token files for the commands: HOME and XDG_STATE_HOME point at an empty folder.
         env = dict(os.environ, HOME=str(tmp / "home"), XDG_STATE_HOME=str(tmp / "home" / "state"), TERM="xterm")
         env.pop("NO_COLOR", None)
@@ -229,8 +208,7 @@ def main():
               and r.stderr.count("\n") == 1 and f"cannot connect to 127.0.0.1:{absent}" in r.stderr, r.stderr)
         r = run([pw, "band", "clear", "target", "--port", str(absent)], env)
         check("band clear without a daemon: exit 1, cannot connect", r.returncode == 1 and "cannot connect" in r.stderr, r.stderr)
-    print("PASS" if not failures else f"{len(failures)} check(s) failed")
-    return 0 if not failures else 1
+    return finish()
 
 
 if __name__ == "__main__":

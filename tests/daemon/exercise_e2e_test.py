@@ -28,11 +28,9 @@ import asyncio
 import json
 import math
 import os
-import re
 import signal
 import stat
 import struct
-import subprocess
 import sys
 import tempfile
 import time
@@ -41,20 +39,15 @@ from pathlib import Path
 
 import websockets
 
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "support"))
+from pitchwired_process import check, finish, start, token, write_config  # noqa: E402
+
 G3 = 440.0 * 2 ** (-14 / 12)  # 195.998 Hz
 AMPLITUDE = 0.5
 RATE = 16000
 SPL_OFFSET = 90.0
 DOSE_LIMIT_S = 2.0
 
-failures = []
-
-
-def check(name, ok, detail=""):
-    print(("PASS: " if ok else "FAIL: ") + name + (f" -- {detail}" if detail else ""))
-    if not ok:
-        failures.append(name)
-    return ok
 
 
 def write_tone(path, seconds):
@@ -66,21 +59,6 @@ def write_tone(path, seconds):
         w.setsampwidth(2)
         w.setframerate(RATE)
         w.writeframes(bytes(frames))
-
-
-def start(exe, config, tone):
-    proc = subprocess.Popen([exe, "--input", f"file:{tone}", "--port", "0", "--config", str(config)],
-                            stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    deadline = time.monotonic() + 15
-    while time.monotonic() < deadline:
-        line = proc.stdout.readline()
-        if not line:
-            break
-        m = re.match(r"pitchwired: live page http://127\.0\.0\.1:(\d+)/", line)
-        if m:
-            return proc, int(m.group(1))
-    proc.kill()
-    raise RuntimeError("pitchwired did not print its live page URL within 15 s: " + proc.stderr.read())
 
 
 class Conn:
@@ -246,14 +224,10 @@ def main():
         tone = tmp / "g3.wav"
         write_tone(tone, 12.0)
         sessions = tmp / "sessions"
-        config = tmp / "pitchwired.jsonc"
-        config.write_text(json.dumps({"token_dir": str(tmp / "tokens"), "log_file": str(tmp / "pitchwired.log"),
-                                      "session_dir": str(sessions), "loop": False, "spl_offset_db": SPL_OFFSET,
-                                      "dose_limit_voiced_s": DOSE_LIMIT_S}), encoding="utf-8")
-        proc, port = start(args.daemon, config, tone)
+        config = write_config(tmp, loop=False, spl_offset_db=SPL_OFFSET, dose_limit_voiced_s=DOSE_LIMIT_S)
+        proc, port = start(args.daemon, config, source=f"file:{tone}")
         try:
-            token = (tmp / "tokens" / "supervisor.token").read_text(encoding="utf-8").strip()
-            messages, started, ended = asyncio.run(session(port, token, proc))
+            messages, started, ended = asyncio.run(session(port, token(tmp, "supervisor"), proc))
         finally:
             proc.send_signal(signal.SIGTERM)
             code = proc.wait(10)
@@ -262,8 +236,7 @@ def main():
             check_stats(messages)
             check_summary(started, ended)
             check_record(sessions, ended)
-    print("PASS" if not failures else f"{len(failures)} check(s) failed")
-    return 0 if not failures else 1
+    return finish()
 
 
 if __name__ == "__main__":

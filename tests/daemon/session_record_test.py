@@ -17,10 +17,8 @@ import argparse
 import asyncio
 import json
 import os
-import re
 import signal
 import stat
-import subprocess
 import sys
 import tempfile
 import time
@@ -29,33 +27,9 @@ from pathlib import Path
 
 import websockets
 
-failures = []
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "support"))
+from pitchwired_process import check, finish, start, token, write_config  # noqa: E402
 
-
-def check(name, ok, detail=""):
-    print(("PASS: " if ok else "FAIL: ") + name + (f" -- {detail}" if detail else ""))
-    if not ok:
-        failures.append(name)
-    return ok
-
-
-def start(exe, config, extra=()):
-    proc = subprocess.Popen([exe, "--input", "demo", "--port", "0", "--config", str(config), *extra],
-                            stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
-    deadline = time.monotonic() + 15
-    port = None
-    while time.monotonic() < deadline:
-        line = proc.stdout.readline()
-        if not line:
-            break
-        m = re.match(r"pitchwired: live page http://127\.0\.0\.1:(\d+)/", line)
-        if m:
-            port = int(m.group(1))
-            break
-    if port is None:
-        proc.kill()
-        raise RuntimeError("pitchwired did not print its live page URL within 15 s")
-    return proc, port
 
 
 async def listen(port, lab_token, seconds):
@@ -99,12 +73,10 @@ def main():
     with tempfile.TemporaryDirectory(prefix="pitchwire-session-") as tmp:
         tmp = Path(tmp)
         sessions = tmp / "sessions"
-        config = tmp / "pitchwired.jsonc"
-        config.write_text(json.dumps({"token_dir": str(tmp / "tokens"), "log_file": str(tmp / "pitchwired.log"),
-                                      "session_dir": str(sessions)}), encoding="utf-8")
-        proc, port = start(args.daemon, config, ["--record-audio", "--audio-consent"])
+        config = write_config(tmp)
+        proc, port = start(args.daemon, config, extra=["--record-audio", "--audio-consent"])
         try:
-            lab_token = (tmp / "tokens" / "lab.token").read_text(encoding="utf-8").strip()
+            lab_token = token(tmp, "lab")
             last_received = asyncio.run(listen(port, lab_token, 4.0))
         finally:
             proc.send_signal(signal.SIGKILL)
@@ -175,8 +147,7 @@ def main():
             check("the second run, without --record-audio, keeps no audio", not (second / "audio.wav").exists())
         log_text = (tmp / "pitchwired.log").read_text(encoding="utf-8", errors="replace")
         check("the daemon's log names the session it closed", first.name in log_text and "was not closed" in log_text)
-    print("PASS" if not failures else f"{len(failures)} check(s) failed")
-    return 0 if not failures else 1
+    return finish()
 
 
 if __name__ == "__main__":
