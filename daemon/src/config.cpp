@@ -158,6 +158,18 @@ void check_bind(const Subject& subject, const std::string& value) {
   fail_allowed(subject, quote(value), kBindAllowed);
 }
 
+// 127.0.0.0/8 and ::1 (and ::ffff:127.x): addresses no other machine can reach.
+bool is_loopback(const std::string& value) {
+  in_addr v4{};
+  in6_addr v6{};
+  if (::inet_pton(AF_INET, value.c_str(), &v4) == 1) return (ntohl(v4.s_addr) >> 24) == 127;
+  if (::inet_pton(AF_INET6, value.c_str(), &v6) == 1) {
+    if (IN6_IS_ADDR_LOOPBACK(&v6)) return true;
+    return IN6_IS_ADDR_V4MAPPED(&v6) && v6.s6_addr[12] == 127;
+  }
+  return false;
+}
+
 void check_log_level(const Subject& subject, const std::string& value) {
   if (std::find(kLogLevels.begin(), kLogLevels.end(), value) != kLogLevels.end()) return;
   fail_allowed(subject, quote(value), "trace, debug, info, warn, error or off");
@@ -202,10 +214,10 @@ InputSpec parse_input_as(const Subject& subject, const std::string& text) {
 // ---- the configuration file ----------------------------------------------------------------------------
 
 // The keys of the file, in the order of DaemonConfig (and of to_json_text and config/pitchwired.jsonc).
-constexpr std::array<std::string_view, 35> kKeys = {
+constexpr std::array<std::string_view, 36> kKeys = {
     "input", "sample_rate_hz", "buffer_frames", "channel", "loop", "ring_s",                      // audio
     "hop_ms", "settle_ms", "f0_min_hz", "f0_max_hz", "hum_cancel", "reference_hz",               // estimator
-    "bind", "port", "web_root", "max_clients", "max_message_bytes", "queue_frames",              // server
+    "bind", "allow_remote", "port", "web_root", "max_clients", "max_message_bytes", "queue_frames",              // server
     "slow_client_s", "requests_per_s", "request_burst", "stats_interval_s", "stats_window_s",
     "band_dwell_s", "stability_window_s",
     "spl_offset_db", "dose_limit_voiced_s", "dose_limit_cycles",                                  // measures
@@ -302,6 +314,8 @@ class FileReader {
     } else if (key == "bind") {
       config.bind = text_value(key, value);
       check_bind(s, config.bind);
+    } else if (key == "allow_remote") {
+      config.allow_remote = boolean(key, value);
     } else if (key == "port") {
       config.port = static_cast<int>(integer(key, value, kPort));
     } else if (key == "web_root") {
@@ -616,6 +630,7 @@ struct Flags {
   bool no_loop = false;
   bool record_audio = false;
   bool audio_consent = false;
+  bool allow_remote = false;
 };
 
 void apply_flags(const CLI::App& app, const Flags& f, DaemonConfig& config) {
@@ -658,6 +673,7 @@ void apply_flags(const CLI::App& app, const Flags& f, DaemonConfig& config) {
     config.log_file = f.log_file;
   }
   if (f.record_audio) config.record_audio = true;
+  if (f.allow_remote) config.allow_remote = true;
   config.audio_consent = f.audio_consent;
 }
 
@@ -719,6 +735,11 @@ void DaemonConfig::validate() const {
   check_path(key("exercises_file"), exercises_file.string());
 
   // Settings that depend on each other.
+  if (!allow_remote && !is_loopback(bind)) {
+    throw ConfigError("bind " + quote(bind) +
+                      " listens beyond this machine: add --allow-remote (\"allow_remote\": true) to mean it; every "
+                      "client then needs a token (docs/daemon.md, \"Listening beyond this machine\")");
+  }
   if (record_audio && !audio_consent) {
     throw ConfigError(
         "record_audio is true but --audio-consent was not given: keeping a recording of a voice needs the "
@@ -884,6 +905,9 @@ CommandLine parse_command_line(int argc, const char* const* argv) {
                                 defaults.bind))
         ->type_name("ADDRESS")
         ->group(kServer);
+    app.add_flag("--allow-remote", f.allow_remote,
+                 "Let --bind name an address beyond this machine; every client then needs a token")
+        ->group(kServer);
     app.add_option("--port", f.port,
                    with_default("TCP port, 0 to 65535; 0 picks a free one", std::to_string(defaults.port)))
         ->type_name("PORT")
@@ -976,6 +1000,7 @@ std::string to_json_text(const DaemonConfig& config) {
   out["hum_cancel"] = config.hum_cancel;
   out["reference_hz"] = config.reference_hz;
   out["bind"] = config.bind;
+  out["allow_remote"] = config.allow_remote;
   out["port"] = config.port;
   out["web_root"] = config.web_root.string();
   out["max_clients"] = config.max_clients;

@@ -87,12 +87,21 @@ std::string random_token() {
 }
 
 // The token kept in `path` (mode 0600), created on first start.
+// A token file that others could read may have been read: it is replaced by a new token.
 std::string load_or_create_token(const fs::path& path) {
   if (std::ifstream in(path); in) {
     std::string token;
     std::getline(in, token);
-    if (token.size() == 32 && token.find_first_not_of("0123456789abcdef") == std::string::npos) return token;
-    spdlog::warn("{}: not a valid token, making a new one", path.string());
+    struct stat st {};
+    const bool private_file = ::stat(path.c_str(), &st) == 0 && (st.st_mode & 077) == 0 && st.st_uid == ::geteuid();
+    const bool valid = token.size() == 32 && token.find_first_not_of("0123456789abcdef") == std::string::npos;
+    if (valid && private_file) return token;
+    if (!valid) {
+      spdlog::warn("{}: not a valid token, making a new one", path.string());
+    } else {
+      spdlog::warn("{}: readable by others (mode {:o}) or not ours, so the token may be known: making a new one",
+                   path.string(), st.st_mode & 0777);
+    }
   }
   const std::string token = random_token();
   const fs::path tmp = path.string() + ".new";
@@ -200,6 +209,8 @@ int run(const pw::DaemonConfig& config) {
   make_private_dir(token_dir, true);
   const std::string supervisor_token = load_or_create_token(token_dir / "supervisor.token");
   const std::string lab_token = load_or_create_token(token_dir / "lab.token");
+  // Listening beyond this machine, every client needs a token: observers get one of their own.
+  const std::string observer_token = config.allow_remote ? load_or_create_token(token_dir / "observer.token") : "";
 
   pw::ServerOptions options;
   options.bind = config.bind;
@@ -217,6 +228,8 @@ int run(const pw::DaemonConfig& config) {
   options.request_burst = config.request_burst;
   options.supervisor_token = supervisor_token;
   options.lab_token = lab_token;
+  options.observer_token = observer_token;
+  options.require_token = config.allow_remote;
   {
     // The presets' band limits are checked as set_band requests are, against the same range.
     pitchwire::protocol::DecodeOptions limits;

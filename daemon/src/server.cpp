@@ -245,11 +245,14 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
   void remove_session(const WsSession* s);
   void do_accept();
   bool host_allowed(std::string_view host) const {
+    // With tokens required, a page reached under another name (DNS rebinding) still has no token.
+    if (options.require_token) return true;
     const std::string h = lower(host);
     return std::find(allowed_hosts.begin(), allowed_hosts.end(), h) != allowed_hosts.end();
   }
-  bool origin_allowed(std::string_view origin) const {
+  bool origin_allowed(std::string_view origin, std::string_view host) const {
     const std::string o = lower(origin);
+    if (options.require_token) return o == lower("http://" + std::string(host));  // our own page only
     return std::find(allowed_origins.begin(), allowed_origins.end(), o) != allowed_origins.end();
   }
 };
@@ -826,7 +829,7 @@ class HttpSession : public std::enable_shared_from_this<HttpSession> {
     }
     if (req.count(http::field::origin) > 0) {
       const std::string origin(req[http::field::origin]);
-      if (!server_->origin_allowed(origin)) {
+      if (!server_->origin_allowed(origin, std::string(req[http::field::host]))) {
         // Cross-site WebSocket hijacking: only our own page may connect from a browser.
         spdlog::warn("refused a WebSocket from Origin \"{}\"", origin.substr(0, 80));
         send_error(http::status::forbidden, "Origin \"" + origin.substr(0, 80) + "\" may not connect",
@@ -859,15 +862,25 @@ class HttpSession : public std::enable_shared_from_this<HttpSession> {
       // Compare with both tokens always, so timing does not tell which one was near.
       const bool supervisor = tokens_equal(token, server_->options.supervisor_token);
       const bool lab = tokens_equal(token, server_->options.lab_token);
+      const bool observer = !server_->options.observer_token.empty() &&
+                            tokens_equal(token, server_->options.observer_token);
       if (supervisor) {
         role = protocol::Role::kSupervisor;
       } else if (lab) {
         role = protocol::Role::kLab;
+      } else if (observer) {
+        role = protocol::Role::kObserver;
       } else {
         spdlog::warn("refused a WebSocket with an unknown token");
         send_error(http::status::forbidden, "unknown token", req.version());
         return;
       }
+    }
+    if (token.empty() && server_->options.require_token) {
+      spdlog::warn("refused a WebSocket without a token (listening beyond this machine)");
+      send_error(http::status::unauthorized,
+                 "a token is needed: this daemon listens beyond this machine (docs/daemon.md)", req.version());
+      return;
     }
     if (server_->session_count.load() >= static_cast<std::size_t>(server_->options.max_clients)) {
       send_error(http::status::service_unavailable,

@@ -57,6 +57,7 @@ class Fixture : public ::testing::Test {
     o.hello.hop_ms = 5.0;
     o.hello.settle_ms = 60.0;
     o.audio_clock = [this] { return static_cast<double>(index_.load()) * 0.005; };
+    configure(o);
     server_ = std::make_unique<Server>(o);
     server_->set_audio_format({16000.0, 1});
     server_->start();
@@ -84,6 +85,9 @@ class Fixture : public ::testing::Test {
       }
     });
   }
+
+  // A variant's own settings, before the server is made.
+  virtual void configure(ServerOptions&) {}
 
   void TearDown() override {
     stop_.store(true);
@@ -155,11 +159,12 @@ class Fixture : public ::testing::Test {
 
   // Status of the answer to a WebSocket upgrade request (101 when it was accepted), sent as plain HTTP so
   // that the refusal itself can be read.
-  int handshake_status(const std::string& target, const std::string& protocols, const std::string& origin) {
+  int handshake_status(const std::string& target, const std::string& protocols, const std::string& origin,
+                       const std::string& host_header = "") {
     tcp::socket socket(ioc_);
     socket.connect(tcp::endpoint(net::ip::make_address("127.0.0.1"), static_cast<unsigned short>(server_->port())));
     http::request<http::empty_body> req{http::verb::get, target, 11};
-    req.set(http::field::host, host());
+    req.set(http::field::host, host_header.empty() ? host() : host_header);
     req.set(http::field::connection, "Upgrade");
     req.set(http::field::upgrade, "websocket");
     req.set(http::field::sec_websocket_version, "13");
@@ -354,6 +359,33 @@ TEST_F(Fixture, HandshakesFromElsewhereAreRefused) {
   EXPECT_EQ(http_status(host(), "/%2e%2e/%2e%2e/etc/passwd"), 400);
   EXPECT_EQ(http_status(host(), "/a%2fb"), 400) << "encoded slash";
   EXPECT_EQ(http_status(host(), "/missing.js"), 404);
+}
+
+// A daemon listening beyond this machine (allow_remote): every connection needs a token, observers one of
+// their own; any Host is accepted (a page under another name has no token), and a browser's Origin must be
+// the page it came from, that is the Host it asked.
+class RemoteFixture : public Fixture {
+ protected:
+  static constexpr std::string_view kObserverToken = "a5a5a5a5a5a5a5a5a5a5a5a5a5a5a5a5";
+  void configure(ServerOptions& o) override {
+    o.require_token = true;
+    o.observer_token = std::string(kObserverToken);
+  }
+};
+
+TEST_F(RemoteFixture, EveryClientNeedsATokenAndOriginsMustMatchTheHost) {
+  const std::string observer = "/ws?token=" + std::string(kObserverToken);
+  EXPECT_EQ(handshake_status("/ws", "pitchwire.v1", ""), 401) << "no token";
+  EXPECT_EQ(handshake_status(observer, "pitchwire.v1", ""), 101) << "the observer token";
+  EXPECT_EQ(handshake_status("/ws?token=" + std::string(kSupervisorToken), "pitchwire.v1", ""), 101);
+  EXPECT_EQ(handshake_status("/ws?token=00000000000000000000000000000000", "pitchwire.v1", ""), 403);
+  const std::string lan = "192.0.2.10:" + std::to_string(server_->port());  // TEST-NET-1 (RFC 5737)
+  EXPECT_EQ(handshake_status(observer, "pitchwire.v1", "http://" + lan, lan), 101) << "our page, reached over the LAN";
+  EXPECT_EQ(handshake_status(observer, "pitchwire.v1", "http://evil.example", lan), 403) << "another site's page";
+  EXPECT_EQ(http_status(lan, "/"), 200) << "the page is served under the name it was reached by";
+  auto ws = connect(observer);
+  const Json hello = read_until(*ws, "hello");
+  EXPECT_EQ(hello.at("role"), "observer");
 }
 
 TEST_F(Fixture, StoppingClosesEveryClientWithGoingAway) {

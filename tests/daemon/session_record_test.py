@@ -74,6 +74,11 @@ def main():
         tmp = Path(tmp)
         sessions = tmp / "sessions"
         config = write_config(tmp)
+        # A lab token file others could read is not trusted: the daemon makes a new one (docs/daemon.md).
+        (tmp / "tokens").mkdir(mode=0o700)
+        exposed = "a5" * 16
+        (tmp / "tokens" / "lab.token").write_text(exposed + "\n", encoding="utf-8")
+        os.chmod(tmp / "tokens" / "lab.token", 0o644)
         proc, port = start(args.daemon, config, extra=["--record-audio", "--audio-consent"])
         try:
             lab_token = token(tmp, "lab")
@@ -81,6 +86,9 @@ def main():
         finally:
             proc.send_signal(signal.SIGKILL)
             proc.wait(10)
+        check("a token file readable by others was replaced by a new token, private (0600)",
+              lab_token != exposed and len(lab_token) == 32 and mode(tmp / "tokens" / "lab.token") == 0o600,
+              f"{mode(tmp / 'tokens' / 'lab.token'):o}")
         check("a client received settled frames", last_received is not None and last_received > 2.0, str(last_received))
         folders = sorted(p for p in sessions.iterdir() if p.is_dir())
         if not check("one session folder after the kill", len(folders) == 1, str(folders)):
@@ -147,6 +155,7 @@ def main():
             check("the second run, without --record-audio, keeps no audio", not (second / "audio.wav").exists())
         log_text = (tmp / "pitchwired.log").read_text(encoding="utf-8", errors="replace")
         check("the daemon's log names the session it closed", first.name in log_text and "was not closed" in log_text)
+        check("the daemon's log says why it replaced the token", "lab.token: readable by others" in log_text)
     return finish()
 
 

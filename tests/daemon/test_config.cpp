@@ -156,7 +156,7 @@ TEST(Config, ShippedFileHasEveryKey) {
   // to_json_text and missing here would be a setting nobody is told about.
   const std::set<std::string> written = keys_of(to_json_text(defaults()));
   EXPECT_EQ(keys_of(read_text(shipped_config())), written);
-  EXPECT_EQ(written.size(), 35u);
+  EXPECT_EQ(written.size(), 36u);
 }
 
 TEST(Config, EveryKeyIsReadFromTheFile) {
@@ -175,6 +175,7 @@ TEST(Config, EveryKeyIsReadFromTheFile) {
   changed.hum_cancel = false;
   changed.reference_hz = 110;
   changed.bind = "::1";
+  changed.allow_remote = true;
   changed.port = 8000;
   changed.web_root = "/srv/web";
   changed.max_clients = 16;
@@ -417,11 +418,21 @@ TEST(Config, ValidateNamesTheKeyTheValueAndWhatIsAllowed) {
     const std::string message = error_of([&] { config.validate(); });
     EXPECT_EQ(message.rfind(cases[i].expected, 0), 0u) << message;
   }
+  // An address beyond this machine needs allow_remote; loopback ones do not.
   DaemonConfig v6;
-  v6.bind = "::";
-  EXPECT_NO_THROW(v6.validate());
-  v6.bind = "0.0.0.0";
-  EXPECT_NO_THROW(v6.validate());
+  for (const char* any : {"::", "0.0.0.0", "192.0.2.10"}) {
+    SCOPED_TRACE(any);
+    v6.bind = any;
+    v6.allow_remote = false;
+    EXPECT_NE(error_of([&] { v6.validate(); }).find("listens beyond this machine: add --allow-remote"), std::string::npos);
+    v6.allow_remote = true;
+    EXPECT_NO_THROW(v6.validate());
+  }
+  v6.allow_remote = false;
+  for (const char* local : {"127.0.0.1", "127.0.1.1", "::1", "::ffff:127.0.0.1"}) {
+    v6.bind = local;
+    EXPECT_NO_THROW(v6.validate()) << local;
+  }
 }
 
 // ---- the file as a whole -----------------------------------------------------------------------------

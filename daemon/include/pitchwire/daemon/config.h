@@ -54,6 +54,7 @@ struct DaemonConfig {
 
   // server
   std::string bind = "127.0.0.1";     // "bind": an IPv4 or IPv6 address literal
+  bool allow_remote = false;          // "allow_remote": a bind beyond loopback is meant; every client needs a token
   int port = kDefaultPort;            // "port": 0 (pick a free one) .. 65535
   std::filesystem::path web_root;     // "web_root": folder of the live page; empty = the built-in default
   int max_clients = 512;              // "max_clients": 1..10000 WebSocket connections at once
@@ -107,7 +108,7 @@ struct CommandLine {
 
 // Parses argv with CLI11: --input, --port, --bind, --config, --check-config, --list-devices, --channel,
 // --sample-rate, --buffer-frames, --hop-ms, --settle-ms, --f0-min, --f0-max, --no-hum-cancel, --no-loop,
-// --web-root, --log-level, --log-file, --record-audio, --audio-consent, --version, --help. Loads the configuration file (default path
+// --web-root, --log-level, --log-file, --record-audio, --audio-consent, --allow-remote, --version, --help. Loads the configuration file (default path
 // when it exists, or --config), then applies the flags, then validates. Never throws: problems come back
 // as exit_code 2 with a one-line message.
 [[nodiscard]] CommandLine parse_command_line(int argc, const char* const* argv);

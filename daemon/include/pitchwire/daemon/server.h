@@ -40,6 +40,9 @@ struct ServerOptions {
   double request_burst = 40.0;
   std::string supervisor_token;       // hex; a connection that presents it is a supervisor
   std::string lab_token;              // hex; ... a lab client
+  std::string observer_token;         // hex; ... an observer (used with require_token)
+  bool require_token = false;         // every connection needs a token (a daemon listening beyond this
+                                      // machine); any Host is then accepted, and an Origin must be the Host's
   std::vector<ExercisePreset> presets;  // the exercises start_exercise accepts, with the bands they set
   protocol::Hello hello;              // the greeting's fixed part (versions, audio format, hop, range)
   std::function<double()> audio_clock;  // seconds on the audio clock now (Pipeline::audio_time_s)
