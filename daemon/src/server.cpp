@@ -22,6 +22,7 @@
 #include <chrono>
 #include <deque>
 #include <future>
+#include <map>
 #include <mutex>
 #include <optional>
 #include <thread>
@@ -69,6 +70,12 @@ constexpr int kSocketSendBufferBytes = 32 * 1024;
 constexpr std::size_t kMaxHttpHeaderBytes = 8 * 1024;
 // A second Sec-WebSocket-Protocol entry may carry the token: "pitchwire.token.<hex>".
 constexpr std::string_view kTokenProtocolPrefix = "pitchwire.token.";
+// Token guessing: after this many unknown tokens from one address within the window, every handshake with
+// a token from it is refused (HTTP 429) until the window has passed without one. Tokens have 128 bits, so
+// this is about noise in the logs and wasted work, not odds.
+constexpr int kTokenFailuresAllowed = 5;
+constexpr auto kTokenFailureWindow = std::chrono::seconds(60);
+constexpr std::size_t kTokenFailureAddresses = 1024;  // addresses remembered (the oldest is forgotten)
 
 protocol::FieldSet field_set_from_bits(unsigned bits) {
   protocol::FieldSet set = protocol::FieldSet::none();
@@ -244,6 +251,32 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
   void add_session(const std::shared_ptr<WsSession>& s);
   void remove_session(const WsSession* s);
   void do_accept();
+  // Network thread: unknown tokens per remote address (token guessing).
+  struct TokenFailures {
+    int count = 0;
+    Clock::time_point last;
+  };
+  std::map<std::string, TokenFailures> token_failures;
+  bool token_locked(const std::string& address) {
+    const auto it = token_failures.find(address);
+    if (it == token_failures.end()) return false;
+    if (Clock::now() - it->second.last > kTokenFailureWindow) {
+      token_failures.erase(it);
+      return false;
+    }
+    return it->second.count >= kTokenFailuresAllowed;
+  }
+  void token_failed(const std::string& address) {
+    if (token_failures.size() >= kTokenFailureAddresses && !token_failures.count(address)) {
+      const auto oldest = std::min_element(token_failures.begin(), token_failures.end(),
+                                           [](const auto& a, const auto& b) { return a.second.last < b.second.last; });
+      token_failures.erase(oldest);
+    }
+    TokenFailures& f = token_failures[address];
+    ++f.count;
+    f.last = Clock::now();
+  }
+
   bool host_allowed(std::string_view host) const {
     // With tokens required, a page reached under another name (DNS rebinding) still has no token.
     if (options.require_token) return true;
@@ -858,6 +891,14 @@ class HttpSession : public std::enable_shared_from_this<HttpSession> {
       return;
     }
     protocol::Role role = protocol::Role::kObserver;
+    beast::error_code addr_ec;
+    const std::string address = stream_.socket().remote_endpoint(addr_ec).address().to_string();
+    if (!token.empty() && server_->token_locked(address)) {
+      spdlog::warn("refused a WebSocket with a token from {}: too many unknown tokens", address);
+      send_error(http::status::too_many_requests,
+                 "too many unknown tokens from this address; try again in a minute", req.version());
+      return;
+    }
     if (!token.empty()) {
       // Compare with both tokens always, so timing does not tell which one was near.
       const bool supervisor = tokens_equal(token, server_->options.supervisor_token);
@@ -871,7 +912,8 @@ class HttpSession : public std::enable_shared_from_this<HttpSession> {
       } else if (observer) {
         role = protocol::Role::kObserver;
       } else {
-        spdlog::warn("refused a WebSocket with an unknown token");
+        server_->token_failed(address);
+        spdlog::warn("refused a WebSocket with an unknown token from {}", address);
         send_error(http::status::forbidden, "unknown token", req.version());
         return;
       }
