@@ -54,8 +54,39 @@ add_test(NAME report.browser
 set_tests_properties(report.browser PROPERTIES FIXTURES_REQUIRED pitchwire_report_node LABELS report TIMEOUT 120)
 
 # The terminal commands against a running daemon on the demo voice, `watch` under a pseudo-terminal
-# (cli_live_test.py).
+# (cli_live_test.py). This file is read before tests/daemon/tests.cmake: find the python3 here.
+pitchwire_find_python(PITCHWIRE_PYTHON_WS "websockets, jsonschema" "python3-websockets python3-jsonschema"
+                      "the live tests of the daemon and of the clients")
 add_test(NAME cli.live
          COMMAND ${PITCHWIRE_PYTHON_WS} ${CMAKE_CURRENT_LIST_DIR}/cli_live_test.py --daemon $<TARGET_FILE:pitchwired>
                  --pitchwire $<TARGET_FILE:pitchwire>)
 set_tests_properties(cli.live PROPERTIES LABELS cli TIMEOUT 180 ENVIRONMENT LD_BIND_NOW=1)
+
+# The live page (clients/web): web.units checks its units and frame store in node (tests/clients/web/units_test.js);
+# web.live_view opens it in headless Debian Chromium against a running pitchwired on the demo voice, as observer and
+# as supervisor, through the playwright-core that report.browser_setup installs (tests/clients/web/live_view_test.js).
+# The screenshots stay in <build>/tests/clients/web/out.
+add_test(NAME web.units COMMAND ${PITCHWIRE_NODE} ${CMAKE_CURRENT_LIST_DIR}/web/units_test.js
+                                --web ${PROJECT_SOURCE_DIR}/clients/web)
+set_tests_properties(web.units PROPERTIES LABELS web TIMEOUT 30)
+add_test(NAME web.live_view
+         COMMAND ${PITCHWIRE_NODE} ${CMAKE_CURRENT_LIST_DIR}/web/live_view_test.js
+                 --daemon $<TARGET_FILE:pitchwired> --web-root ${PROJECT_SOURCE_DIR}/clients/web
+                 --modules ${PITCHWIRE_REPORT_NODE_DIR} --chromium ${PITCHWIRE_CHROMIUM}
+                 --out ${CMAKE_BINARY_DIR}/tests/clients/web/out)
+set_tests_properties(web.live_view PROPERTIES FIXTURES_REQUIRED pitchwire_report_node LABELS web TIMEOUT 120)
+
+# The Python client (clients/python, package pitchwire_client) with pytest against a running pitchwired on its
+# demo voice (tests/clients/python): frames and settled frames, markers on both clocks, roles and refusals,
+# the blocking client's bounded queue, the clock offset, the band trigger, reconnection, an absent daemon and
+# the example routine. The same python3 as the live tests above, which must also import pytest.
+execute_process(COMMAND ${PITCHWIRE_PYTHON_WS} -c "import pytest" RESULT_VARIABLE _pw_pytest_rc OUTPUT_QUIET ERROR_QUIET)
+if(NOT _pw_pytest_rc EQUAL 0)
+  message(FATAL_ERROR "The Python client's tests need pytest in ${PITCHWIRE_PYTHON_WS}: install the Debian package "
+                      "python3-pytest (apt-get install python3-pytest), as ./dev test does, or configure with "
+                      "-DPITCHWIRE_BUILD_TESTS=OFF.")
+endif()
+add_test(NAME clients.python
+         COMMAND ${PITCHWIRE_PYTHON_WS} -m pytest -p no:cacheprovider -q -ra ${CMAKE_CURRENT_LIST_DIR}/python
+                 --pitchwired $<TARGET_FILE:pitchwired>)
+set_tests_properties(clients.python PROPERTIES LABELS python TIMEOUT 120 ENVIRONMENT PYTHONDONTWRITEBYTECODE=1)
