@@ -27,8 +27,6 @@
   const SUBSCRIBE = { type: 'subscribe', id: 'live', rate: { fps: 60 }, fields: ['f0_hz', 'level_dbfs'], settled: true };
   const READOUT_MS = 100;          // the large readout changes at most ten times a second
   const METER_FLOOR_DBFS = -80;
-  // The presets shipped in config/exercises.jsonc; the daemon's own list replaces them when it names it.
-  const DEFAULT_PRESETS = ['sustained_vowel', 'pitch_glide', 'reading', 'conversation'];
   const STATE_WORDS = {
     below: { sign: '\u25bc', word: 'below' },
     inside: { sign: '\u25cf', word: 'inside' },
@@ -44,7 +42,7 @@
     ws: null, connected: false, everConnected: false, attempts: 0, retryTimer: null,
     role: null, refHz: 100, hopMs: 5, step: 4, f0Range: { min: 50, max: 1400 }, splOffset: null, limits: null,
     bands: [], bandSlots: new Map(), bandHistory: [], bandStates: new Map(), exercise: null, verticals: [],
-    latest: null, stats: null, windowS: 10, pending: new Map(), nextId: 1, presets: DEFAULT_PRESETS.slice(),
+    latest: null, stats: null, windowS: 10, pending: new Map(), nextId: 1, presets: [], presetLabels: new Map(),
     reconnects: 0, drawPending: false, lastReadout: 0, readoutTimer: null, draws: 0,
   };
 
@@ -143,6 +141,10 @@
     state.hopMs = m.hop_ms;
     state.f0Range = m.f0_range_hz;
     state.splOffset = m.spl_offset_db;
+    // The daemon's presets (hello.presets), with their labels.
+    state.presets = (m.presets || []).map((p) => p.name);
+    state.presetLabels = new Map((m.presets || []).map((p) => [p.name, p.label]));
+    renderPresets();
     state.limits = m.limits;
     // Everything drawn is from the new stream (after a daemon restart its clock starts again at 0).
     store.clear();
@@ -572,7 +574,10 @@
     const select = $('exercise-preset');
     if (!select) return;
     const keep = select.value;
-    select.replaceChildren(...state.presets.map((p) => new Option(p, p)));
+    select.replaceChildren(...state.presets.map((p) => {
+      const label = state.presetLabels.get(p);
+      return new Option(label ? `${label} (${p})` : p, p);
+    }));
     if (state.presets.includes(keep)) select.value = keep;
   }
 

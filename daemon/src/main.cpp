@@ -253,6 +253,7 @@ int run(const pw::DaemonConfig& config) {
   options.hello.f0_min_hz = config.f0_min_hz;
   options.hello.f0_max_hz = config.f0_max_hz;
   options.hello.spl_offset_db = config.spl_offset_db;
+  for (const auto& preset : options.presets) options.hello.presets.push_back({preset.name, preset.label});
 
   pw::SampleRing ring(static_cast<std::size_t>(config.ring_s * kMaxSourceRateHz));
   std::unique_ptr<pw::AudioSource> source = make_source(config);

@@ -118,6 +118,12 @@ Encoded encode_settled(const dsp::SettledFrame& frame) {
   return e;
 }
 
+Json preset_list(const std::vector<Hello::Preset>& presets) {
+  Json list = Json::array();
+  for (const Hello::Preset& p : presets) list.push_back(Json{{"name", p.name}, {"label", p.label}});
+  return list;
+}
+
 Encoded encode(const Hello& m) {
   Json exercise = nullptr;
   if (m.exercise) {
@@ -136,6 +142,7 @@ Encoded encode(const Hello& m) {
            {"role", name(m.role)},
            {"bands", band_list(m.bands)},
            {"exercise", std::move(exercise)},
+           {"presets", preset_list(m.presets)},
            {"spl_offset_db", or_null(m.spl_offset_db)},
            {"fields", field_list(FieldSet::all())},
            {"limits", {{"max_message_bytes", m.max_message_bytes},

@@ -483,6 +483,11 @@ async def test_hello_and_roles(ctx):
           and hello.get("fields") == ["f0_hz", "voicing", "confidence", "level_dbfs"]
           and hello.get("bands") == [] and hello.get("exercise") is None,
           "docs/protocol.md hello; config.h defaults", short(hello, 400))
+    names = [p.get("name") for p in hello.get("presets", [])]
+    check("hello.presets: the shipped presets in the file's order, with their labels",
+          names == ["sustained_vowel", "pitch_glide", "reading", "conversation"]
+          and all(p.get("label") for p in hello.get("presets", [])),
+          "docs/protocol.md hello; config/exercises.jsonc", short(hello.get("presets")))
     limit = hello.get("limits", {}).get("max_message_bytes")
     check("hello.limits.max_message_bytes is the default 16384", limit == 16384,
           "docs/protocol.md Connection (16384 by default); config.h max_message_bytes", f"got {limit}")

@@ -83,6 +83,7 @@ int main() {
   hello.bands.clear();
   hello.exercise = pw::Exercise{"glide", "Glide, first try", 12.5};
   hello.spl_offset_db = 94.5;
+  hello.presets = {{"sustained_vowel", "Sustained vowel"}, {"pitch_glide", "Pitch glide"}};
   server(pw::encode(hello));
 
   pitchwire::dsp::LiveFrame live;

@@ -216,6 +216,10 @@ struct Hello {
   Role role = Role::kObserver;
   std::vector<Band> bands;
   std::optional<Exercise> exercise;  // the one running, if any
+  struct Preset {
+    std::string name, label;
+  };
+  std::vector<Preset> presets;       // the exercise presets start_exercise takes, in the file's order
   std::optional<double> spl_offset_db;  // level calibration (dB SPL = dBFS + offset); empty: none
   std::size_t max_message_bytes = kDefaultMaxMessageBytes;
 };
