@@ -411,7 +411,10 @@ std::optional<double> parse_band_limit(std::string_view text, double reference_h
     double st = 0.0;
     const auto [end, ec] = std::from_chars(number.data(), number.data() + number.size(), st);
     if (ec != std::errc() || end != number.data() + number.size() || !std::isfinite(st)) return std::nullopt;
-    return dsp::hz_from_semitones(st, reference_hz);
+    // Far enough from the reference, 2^(st/12) overflows to infinity or underflows to 0: not a frequency.
+    const double hz = dsp::hz_from_semitones(st, reference_hz);
+    if (!std::isfinite(hz) || !(hz > 0.0)) return std::nullopt;
+    return hz;
   }
   return dsp::hz_from_note_name(text);
 }

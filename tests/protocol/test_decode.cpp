@@ -221,7 +221,10 @@ TEST(ProtocolDecode, BandLimitsInHzNotesAndSemitones) {
   EXPECT_NEAR(*parse_band_limit("A4", 100.0), 440.0, 1e-9);
   EXPECT_NEAR(*parse_band_limit("12st", 100.0), 200.0, 1e-9);
   EXPECT_NEAR(*parse_band_limit("-0.5st", 100.0), 100.0 * std::exp2(-0.5 / 12.0), 1e-12);
-  for (const char* bad : {"", "st", "A", "H2", "A10", "3", "220Hz", "3 semitones", "+-1st", "1st st", "nanst"}) {
+  // "+1e33 st" and "-1e33st": found by fuzz_band_limit (tests/fuzz): 2^(st/12) overflows to infinity or
+  // underflows to 0, which is no frequency.
+  for (const char* bad : {"", "st", "A", "H2", "A10", "3", "220Hz", "3 semitones", "+-1st", "1st st", "nanst",
+                          "+1e33 st", "-1e33st", "99999st"}) {
     SCOPED_TRACE(bad);
     EXPECT_FALSE(parse_band_limit(bad, 100.0).has_value());
   }

@@ -27,7 +27,8 @@ using Decoded = std::variant<Request, Error>;
 [[nodiscard]] Decoded decode_request(std::string_view text, const DecodeOptions& options = {}) noexcept;
 
 // A band limit written as text, in Hz: a note name ("A3", "C#4", "Db5", A4 = 440 Hz) or semitones re the
-// reference ("-2st", "+3.5 st"). Empty when the text is neither. (A JSON number is a limit in Hz.)
+// reference ("-2st", "+3.5 st"). Empty when the text is neither, or when it is no finite frequency above 0
+// ("+1e33 st"). (A JSON number is a limit in Hz.)
 [[nodiscard]] std::optional<double> parse_band_limit(std::string_view text, double reference_hz);
 
 }  // namespace pitchwire::protocol
