@@ -26,8 +26,12 @@ constexpr const char* kFormat = "pitchwire.session.v1";
 constexpr auto kRetryInterval = std::chrono::seconds(3);  // a failing disk is tried again this often
 constexpr auto kWakeInterval = std::chrono::milliseconds(100);
 constexpr const char* kAudioFile = "audio.wav";
-// audio.wav: 24-bit PCM WAV (what every audio program reads; 4 GB is about 7.7 hours at 48 kHz).
+// audio.wav: 24-bit PCM WAV (what every audio program reads). WAV counts its bytes in 32 bits: recording
+// stops, said as a problem, before the data reaches 4 GiB (7.7 hours at 48 kHz, 23 hours at 16 kHz).
 constexpr int kAudioFormat = SF_FORMAT_WAV | SF_FORMAT_PCM_24;
+constexpr std::int64_t kAudioBytesPerFrame = 3;
+constexpr std::int64_t kAudioMaxFrames = (0xFFFFFFFFLL - (1 << 16)) / kAudioBytesPerFrame;
+constexpr std::size_t kZeroBlock = 1 << 16;  // frames of silence per write when silence is owed
 
 // Summary percentiles come from a histogram of 10-cent bins from 20 Hz up (bounded memory for sessions of
 // any length; each percentile is exact to 10 cents).
@@ -284,12 +288,15 @@ bool Recorder::open_audio(std::string& failed) {
     info.channels = 1;
     info.format = kAudioFormat;
     audio_ = sf_open_fd(fd, SFM_WRITE, &info, SF_FALSE);
+    audio_frames_ = 0;
   } else {  // writing again after a failure: append
     audio_ = sf_open_fd(fd, SFM_RDWR, &info, SF_FALSE);
-    if (audio_ && sf_seek(audio_, 0, SEEK_END) < 0) {
+    const sf_count_t end = audio_ ? sf_seek(audio_, 0, SEEK_END) : -1;
+    if (audio_ && end < 0) {
       sf_close(audio_);
       audio_ = nullptr;
     }
+    audio_frames_ = end < 0 ? 0 : end;
   }
   if (!audio_) {
     failed = std::string(kAudioFile) + ": " + sf_strerror(nullptr);
@@ -303,24 +310,95 @@ bool Recorder::open_audio(std::string& failed) {
   return true;
 }
 
-bool Recorder::write_audio(const std::vector<float>& samples, std::string& failed) {
-  if (!audio_ && !open_audio(failed)) return false;
-  // Silence owed for samples lost earlier comes first: it stood before these in the input.
-  static constexpr std::array<float, 4096> kZeros{};
-  while (audio_owed_ > 0) {
-    const auto n = static_cast<sf_count_t>(std::min<std::int64_t>(audio_owed_, kZeros.size()));
-    if (sf_writef_float(audio_, kZeros.data(), n) != n) {
-      failed = std::string(kAudioFile) + ": " + sf_strerror(audio_);
-      return false;
-    }
-    audio_owed_ -= n;
-  }
-  const auto n = static_cast<sf_count_t>(samples.size());
-  if (n > 0 && sf_writef_float(audio_, samples.data(), n) != n) {
-    failed = std::string(kAudioFile) + ": " + sf_strerror(audio_);
+bool Recorder::write_audio(const std::vector<float>& samples, std::int64_t owed_after, std::string& failed) {
+  const auto n = static_cast<std::int64_t>(samples.size());
+  // What is not written stays owed as silence, so that audio.wav stays on the audio clock.
+  auto owe_from = [&](std::int64_t written) {
+    audio_lost_.fetch_add(n - written);
+    audio_owed_ += (n - written) + owed_after;
+  };
+  if (!audio_ && !open_audio(failed)) {
+    owe_from(0);
     return false;
   }
+  if (audio_frames_ + audio_owed_ + n > kAudioMaxFrames) {  // WAV's 4 GiB: stop here, whole
+    audio_full_ = true;
+    audio_lost_.fetch_add(n);
+    return true;
+  }
+  // Silence owed for samples lost earlier comes first: it stood before these in the input.
+  static const std::vector<float> zeros(kZeroBlock, 0.0f);
+  while (audio_owed_ > 0) {
+    const auto k = static_cast<sf_count_t>(std::min<std::int64_t>(audio_owed_, kZeroBlock));
+    const sf_count_t w = sf_writef_float(audio_, zeros.data(), k);
+    audio_owed_ -= std::max<sf_count_t>(w, 0);
+    audio_frames_ += std::max<sf_count_t>(w, 0);
+    if (w != k) {
+      failed = std::string(kAudioFile) + ": " + sf_strerror(audio_);
+      owe_from(0);
+      return false;
+    }
+  }
+  const sf_count_t w = n > 0 ? sf_writef_float(audio_, samples.data(), n) : 0;
+  audio_frames_ += std::max<sf_count_t>(w, 0);
+  if (w != n) {
+    failed = std::string(kAudioFile) + ": " + sf_strerror(audio_);
+    owe_from(std::max<sf_count_t>(w, 0));
+    return false;
+  }
+  audio_owed_ += owed_after;
   return true;
+}
+
+void Recorder::close_audio() noexcept {
+  if (audio_) sf_close(audio_);
+  if (audio_fd_ >= 0) ::close(audio_fd_);
+  audio_ = nullptr;
+  audio_fd_ = -1;
+}
+
+// Recorder thread. The audio file fails and recovers on its own: a problem with it never stops the log.
+void Recorder::keep_audio(const std::vector<float>& audio, std::int64_t owed_after, bool flush, bool stopping) {
+  if (audio_full_) {
+    audio_lost_.fetch_add(static_cast<std::int64_t>(audio.size()));
+    return;
+  }
+  const auto now = std::chrono::steady_clock::now();
+  if (audio_failing_ && !stopping && now - audio_last_try_ < kRetryInterval) {  // wait for the next try
+    audio_lost_.fetch_add(static_cast<std::int64_t>(audio.size()));
+    audio_owed_ += static_cast<std::int64_t>(audio.size()) + owed_after;
+    return;
+  }
+  audio_last_try_ = now;
+  std::string failed;
+  bool ok = write_audio(audio, owed_after, failed);
+  if (ok && stopping && !audio_full_) ok = write_audio({}, 0, failed);  // silence owed at the very end
+  if (ok && audio_ && (flush || stopping)) {
+    sf_write_sync(audio_);
+    if (::fdatasync(audio_fd_) != 0) {
+      ok = false;
+      failed = std::string(kAudioFile) + ": " + std::strerror(errno);
+    }
+  }
+  if (audio_full_) {
+    close_audio();
+    if (on_problem_) {
+      on_problem_("session record: " + (folder_ / kAudioFile).string() +
+                      " reached the size limit of WAV (4 GiB); the rest of the session is not kept as audio",
+                  false);
+    }
+    return;
+  }
+  if (!ok) {
+    close_audio();  // opened again (appending) at the next try
+    if (!audio_failing_ && on_problem_) on_problem_("session record: cannot write " + (folder_ / failed).string(), false);
+    audio_failing_ = true;
+    return;
+  }
+  if (audio_failing_) {
+    audio_failing_ = false;
+    if (on_problem_) on_problem_("session record: writing " + (folder_ / kAudioFile).string() + " again", true);
+  }
 }
 
 void Recorder::problem(const std::string& what) {
@@ -369,7 +447,6 @@ bool Recorder::write_out(std::deque<std::string>& lines) {
 }
 
 bool Recorder::flush_files() {
-  if (audio_) sf_write_sync(audio_);
   return std::fflush(log_) == 0 && std::fflush(csv_) == 0 && ::fdatasync(::fileno(log_)) == 0 &&
          ::fdatasync(::fileno(csv_)) == 0;
 }
@@ -377,11 +454,7 @@ bool Recorder::flush_files() {
 void Recorder::close_files() noexcept {
   if (log_) std::fclose(log_);
   if (csv_) std::fclose(csv_);
-  if (audio_) sf_close(audio_);
-  if (audio_fd_ >= 0) ::close(audio_fd_);
   log_ = csv_ = nullptr;
-  audio_ = nullptr;
-  audio_fd_ = -1;
 }
 
 void Recorder::run() {
@@ -417,14 +490,16 @@ void Recorder::run() {
       last_try = Clock::now();
       open_files();
     }
-    // Audio that cannot be written now is owed as silence, so that audio.wav stays on the audio clock.
-    auto lose_audio = [&] {
+    const bool flush_due = stopping || Clock::now() - last_flush >= flush_every;
+    // The audio file (only with record_audio) goes its own way: its problems never stop the log.
+    if (options_.record_audio && !folder_.empty() && fs::is_directory(folder_)) {
+      keep_audio(audio, audio_owed_after, flush_due, stopping);
+    } else if (options_.record_audio) {
       audio_lost_.fetch_add(static_cast<std::int64_t>(audio.size()));
       audio_owed_ += static_cast<std::int64_t>(audio.size()) + audio_owed_after;
-    };
+    }
     if (!log_) {  // nothing can be written: these lines are lost, and counted (an exercise's file is
       // kept for the next try: its summary is in the events too)
-      lose_audio();
       dropped_.fetch_add(static_cast<std::int64_t>(lines.size()));
       const std::lock_guard lock(mutex_);
       files_.insert(files_.begin(), files.begin(), files.end());
@@ -449,18 +524,8 @@ void Recorder::run() {
         failed = "frames.csv: " + std::string(std::strerror(errno));
       }
     }
-    if (ok && options_.record_audio) {
-      if (write_audio(audio, failed)) {
-        audio_owed_ += audio_owed_after;
-      } else {
-        ok = false;
-        lose_audio();
-      }
-    } else if (options_.record_audio) {
-      lose_audio();
-    }
     if (ok) unflushed_ += data_lines;
-    if (ok && (stopping || gap_upto >= 0 || Clock::now() - last_flush >= flush_every)) {
+    if (ok && (flush_due || gap_upto >= 0)) {
       ok = flush_files();
       if (!ok) failed = "session.jsonl and frames.csv: " + std::string(std::strerror(errno));
       last_flush = Clock::now();
@@ -498,6 +563,7 @@ void Recorder::run() {
       if (on_problem_) on_problem_("session record: writing again to " + folder_.string(), true);
     }
   }
+  close_audio();
   if (log_) {
     std::string summary;
     {

@@ -70,9 +70,10 @@ constexpr int kSocketSendBufferBytes = 32 * 1024;
 constexpr std::size_t kMaxHttpHeaderBytes = 8 * 1024;
 // A second Sec-WebSocket-Protocol entry may carry the token: "pitchwire.token.<hex>".
 constexpr std::string_view kTokenProtocolPrefix = "pitchwire.token.";
-// Token guessing: after this many unknown tokens from one address within the window, every handshake with
-// a token from it is refused (HTTP 429) until the window has passed without one. Tokens have 128 bits, so
-// this is about noise in the logs and wasted work, not odds.
+// Token guessing: after this many unknown tokens from one address within the window, further unknown tokens
+// from it are refused with HTTP 429 (not 403) until the window that began with the first of them has passed;
+// a valid token is always accepted, so a stale client cannot lock the supervisor out. Tokens have 128 bits,
+// so this is about noise in the logs and wasted work, not odds.
 constexpr int kTokenFailuresAllowed = 5;
 constexpr auto kTokenFailureWindow = std::chrono::seconds(60);
 constexpr std::size_t kTokenFailureAddresses = 1024;  // addresses remembered (the oldest is forgotten)
@@ -254,27 +255,24 @@ struct Server::Impl : std::enable_shared_from_this<Server::Impl> {
   // Network thread: unknown tokens per remote address (token guessing).
   struct TokenFailures {
     int count = 0;
-    Clock::time_point last;
+    Clock::time_point first;  // of the window the count belongs to
   };
   std::map<std::string, TokenFailures> token_failures;
-  bool token_locked(const std::string& address) {
-    const auto it = token_failures.find(address);
-    if (it == token_failures.end()) return false;
-    if (Clock::now() - it->second.last > kTokenFailureWindow) {
-      token_failures.erase(it);
-      return false;
+  // Counts an unknown token from `address`; true when the address has had too many within the window.
+  bool token_failed(const std::string& address) {
+    const auto now = Clock::now();
+    auto it = token_failures.find(address);
+    if (it == token_failures.end()) {
+      if (token_failures.size() >= kTokenFailureAddresses) {
+        token_failures.erase(std::min_element(token_failures.begin(), token_failures.end(), [](const auto& a, const auto& b) {
+          return a.second.first < b.second.first;
+        }));
+      }
+      it = token_failures.emplace(address, TokenFailures{0, now}).first;
     }
-    return it->second.count >= kTokenFailuresAllowed;
-  }
-  void token_failed(const std::string& address) {
-    if (token_failures.size() >= kTokenFailureAddresses && !token_failures.count(address)) {
-      const auto oldest = std::min_element(token_failures.begin(), token_failures.end(),
-                                           [](const auto& a, const auto& b) { return a.second.last < b.second.last; });
-      token_failures.erase(oldest);
-    }
-    TokenFailures& f = token_failures[address];
-    ++f.count;
-    f.last = Clock::now();
+    TokenFailures& f = it->second;
+    if (now - f.first > kTokenFailureWindow) f = TokenFailures{0, now};
+    return ++f.count > kTokenFailuresAllowed;
   }
 
   bool host_allowed(std::string_view host) const {
@@ -893,12 +891,6 @@ class HttpSession : public std::enable_shared_from_this<HttpSession> {
     protocol::Role role = protocol::Role::kObserver;
     beast::error_code addr_ec;
     const std::string address = stream_.socket().remote_endpoint(addr_ec).address().to_string();
-    if (!token.empty() && server_->token_locked(address)) {
-      spdlog::warn("refused a WebSocket with a token from {}: too many unknown tokens", address);
-      send_error(http::status::too_many_requests,
-                 "too many unknown tokens from this address; try again in a minute", req.version());
-      return;
-    }
     if (!token.empty()) {
       // Compare with both tokens always, so timing does not tell which one was near.
       const bool supervisor = tokens_equal(token, server_->options.supervisor_token);
@@ -912,7 +904,11 @@ class HttpSession : public std::enable_shared_from_this<HttpSession> {
       } else if (observer) {
         role = protocol::Role::kObserver;
       } else {
-        server_->token_failed(address);
+        if (server_->token_failed(address)) {
+          send_error(http::status::too_many_requests,
+                     "too many unknown tokens from this address; try again in a minute", req.version());
+          return;
+        }
         spdlog::warn("refused a WebSocket with an unknown token from {}", address);
         send_error(http::status::forbidden, "unknown token", req.version());
         return;
@@ -1136,7 +1132,8 @@ void Server::start() {
 
   const std::string port = std::to_string(impl_->bound_port);
   std::vector<std::string> names = {"127.0.0.1", "localhost", "[::1]"};
-  if (!address.is_loopback()) names.push_back(address.is_v6() ? "[" + o.bind + "]" : o.bind);
+  // The bind address itself, unless it is one of the names above (127.0.0.2 is loopback too).
+  if (o.bind != "127.0.0.1" && o.bind != "::1") names.push_back(address.is_v6() ? "[" + o.bind + "]" : o.bind);
   for (const auto& n : names) {
     impl_->allowed_hosts.push_back(lower(n + ":" + port));
     impl_->allowed_origins.push_back(lower("http://" + n + ":" + port));

@@ -146,6 +146,13 @@ def main():
                   r.returncode == 0 and len(frames) == 40 and all(f["type"] == "frame" for f in frames)
                   and idx == list(range(idx[0], idx[0] + 40)), r.stderr)
 
+            r = run([pw, "tail", "--settled", "--count", "20", "--seconds", "10", *obs], env)
+            settled = [json.loads(x) for x in r.stdout.splitlines()]
+            check("tail --settled --count 20: 20 settled lines, consecutive indexes, no frames",
+                  r.returncode == 0 and len(settled) == 20 and all(m["type"] == "settled" for m in settled)
+                  and [m["index"] for m in settled] == list(range(settled[0]["index"], settled[0]["index"] + 20)),
+                  r.stdout[:300] + r.stderr)
+
             # watch, output in a pipe: one line per half second, the band in words.
             r = run([pw, "watch", "--seconds", "2.2", *obs], env)
             lines = [x for x in r.stdout.splitlines() if x]

@@ -339,6 +339,62 @@ TEST(Recorder, KeepsTheInputAudioAsWavWhenAskedTo) {
   EXPECT_EQ(head["sample_rate_hz"], 16000.0);
 }
 
+// A problem with audio.wav (here its size hits a file size limit standing in for a full disk) is reported,
+// and the log, the exercise files and the summary go on being written: the audio never stops the record.
+TEST(Recorder, AnAudioFileThatCannotGrowDoesNotStopTheLog) {
+  TempDir tmp;
+  RecorderOptions options;
+  options.sessions_dir = tmp.path / "sessions";
+  options.record_audio = true;
+  options.sample_rate_hz = 16000.0;
+  std::mutex m;
+  std::vector<std::string> problems;
+  Recorder r(options, [&](const std::string& message, bool resolved) {
+    const std::lock_guard lock(m);
+    if (!resolved) problems.push_back(message);
+  });
+  ::signal(SIGXFSZ, SIG_IGN);
+  rlimit old{};
+  ::getrlimit(RLIMIT_FSIZE, &old);
+  rlimit small = old;
+  small.rlim_cur = 96 * 1024;  // 2 s of 16 kHz 24-bit audio; the log stays far below
+  ASSERT_EQ(::setrlimit(RLIMIT_FSIZE, &small), 0);
+  r.start();
+  const std::vector<float> block(1600, 0.25f);  // 0.1 s
+  for (int i = 0; i < 40; ++i) {                // 4 s of audio, 400 frames
+    r.record_audio(block);
+    for (int k = 0; k < 10; ++k) {
+      dsp::SettledFrame f;
+      f.index = i * 10 + k;
+      f.time_s = static_cast<double>(f.index) * 0.01;
+      f.f0_hz = 200.0f;
+      r.record_settled(f);
+    }
+    std::this_thread::sleep_for(std::chrono::milliseconds(30));
+  }
+  protocol::Exercise exercise{"sustained_vowel", "", 1.0};
+  r.record_event(protocol::exercise_ended_event(3.5, exercise, protocol::Json{{"voiced_s", 2.0}}));
+  std::this_thread::sleep_for(std::chrono::milliseconds(300));
+  r.stop();
+  ASSERT_EQ(::setrlimit(RLIMIT_FSIZE, &old), 0);
+  {
+    const std::lock_guard lock(m);
+    ASSERT_EQ(problems.size(), 1u);
+    EXPECT_NE(problems[0].find("audio.wav"), std::string::npos) << problems[0];
+  }
+  int settled = 0;
+  for (const auto& line : lines_of(r.folder() / "session.jsonl")) settled += Json::parse(line)["type"] == "settled";
+  EXPECT_EQ(settled, 400);
+  EXPECT_EQ(r.lines_dropped(), 0);
+  EXPECT_TRUE(fs::exists(r.folder() / "exercise-01-sustained_vowel.json"));
+  EXPECT_TRUE(fs::exists(r.folder() / "summary.json"));
+  SF_INFO info;
+  const std::vector<float> got = read_wav(r.folder() / "audio.wav", info);
+  EXPECT_GT(got.size(), 16000u);  // what fitted before the limit is a readable WAV
+  EXPECT_LT(got.size(), 4u * 16000u);
+  EXPECT_GT(r.audio_samples_lost(), 0);
+}
+
 // Without record_audio nothing is kept, whatever is handed over.
 TEST(Recorder, KeepsNoAudioUnlessAskedTo) {
   TempDir tmp;

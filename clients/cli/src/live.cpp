@@ -400,7 +400,9 @@ int run_watch(const WatchOptions& o) {
   const char* term = std::getenv("TERM");
   const bool color = tty && !o.no_color && !(no_color_env && *no_color_env) && !(term && std::string(term) == "dumb");
   const int width = o.width.value_or(tty ? terminal_width() : 80);
-  const Painter painter(color, std::max(width, 10));
+  // One column spare: a line that fills the last column leaves the cursor waiting to wrap, and the erase
+  // after it would take the line's last character.
+  const Painter painter(color, std::max(width - 1, 10));
   install_stop_handlers();
   WatchState state;
   bool drew = false;
@@ -463,8 +465,10 @@ int run_tail(const TailOptions& o) {
     LiveClient client(target_of(o.live, token.token));
     (void)wait_hello(client);
     if (opt.frames || opt.settled) {
+      // Settled values come for the frames a connection is sent, so every hop is subscribed; with settled
+      // values only, the frames carry no fields and are left out here.
       Json sub{{"type", "subscribe"}, {"id", "tail"}, {"settled", opt.settled}};
-      if (!opt.frames) sub["rate"] = Json{{"every", 10000}};  // settled only: next to no frames
+      if (!opt.frames) sub["fields"] = Json::array();
       client.send(sub.dump());
     }
     const auto started = Clock::now();

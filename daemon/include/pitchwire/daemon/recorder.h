@@ -107,8 +107,11 @@ class Recorder {
   bool write_out(std::deque<std::string>& lines);
   bool flush_files();
   void close_files() noexcept;
-  bool open_audio(std::string& failed);                                      // recorder thread
-  bool write_audio(const std::vector<float>& samples, std::string& failed);  // recorder thread
+  // Recorder thread: the audio file, with a failure state and retries of its own.
+  bool open_audio(std::string& failed);
+  bool write_audio(const std::vector<float>& samples, std::int64_t owed_after, std::string& failed);
+  void keep_audio(const std::vector<float>& audio, std::int64_t owed_after, bool flush, bool stopping);
+  void close_audio() noexcept;
   void problem(const std::string& what);
 
   RecorderOptions options_;
@@ -119,6 +122,10 @@ class Recorder {
   std::FILE* csv_ = nullptr;
   SNDFILE* audio_ = nullptr;            // audio.wav, when record_audio (recorder thread)
   int audio_fd_ = -1;                   // its descriptor (libsndfile does not own it)
+  std::int64_t audio_frames_ = 0;       // frames in audio.wav
+  bool audio_failing_ = false;          // a problem with audio.wav was reported and has not cleared
+  bool audio_full_ = false;             // audio.wav reached WAV's size limit: no more audio is kept
+  std::chrono::steady_clock::time_point audio_last_try_{};
   bool failing_ = false;  // a problem was reported and has not cleared yet (recorder thread)
 
   std::mutex mutex_;
