@@ -28,6 +28,8 @@ struct LiveClient::Impl {
   beast::flat_buffer buffer;
   std::string where;
   bool reading = false;  // an async_read is pending
+  bool closing = false;  // close() has run (once)
+  bool close_done = false;
   bool read_done = false;
   beast::error_code read_ec;
 
@@ -143,13 +145,14 @@ std::optional<std::string> LiveClient::receive(std::chrono::milliseconds timeout
 void LiveClient::close() noexcept {
   if (!impl_) return;
   Impl& s = *impl_;
-  if (!s.ws.is_open()) return;
+  if (s.closing || !s.ws.is_open()) return;
+  s.closing = true;
   beast::error_code ec;
-  // A pending read would see the close; a short synchronous close is enough for a command that ends.
+  // A pending read would see the close; a short wait is enough for a command that ends. The handlers
+  // only touch Impl, which outlives them.
   beast::get_lowest_layer(s.ws).expires_after(std::chrono::milliseconds(500));
-  bool done = false;
-  s.ws.async_close(websocket::close_code::normal, [&](beast::error_code) { done = true; });
-  s.run_until([&] { return done && (!s.reading || s.read_done); }, std::chrono::milliseconds(700));
+  s.ws.async_close(websocket::close_code::normal, [&s](beast::error_code) { s.close_done = true; });
+  s.run_until([&s] { return s.close_done && (!s.reading || s.read_done); }, std::chrono::milliseconds(700));
   beast::get_lowest_layer(s.ws).socket().close(ec);
 }
 
