@@ -25,33 +25,14 @@
 
 const fs = require('node:fs');
 const path = require('node:path');
-const { createRequire } = require('node:module');
 const { execFileSync } = require('node:child_process');
 const { pathToFileURL } = require('node:url');
 
-function parseArgs(argv) {
-  const out = {};
-  for (let i = 2; i < argv.length; i += 2) {
-    if (!argv[i].startsWith('--') || i + 1 >= argv.length) throw new Error(`bad argument ${argv[i]}`);
-    out[argv[i].slice(2)] = argv[i + 1];
-  }
-  for (const key of ['pitchwire', 'modules', 'chromium', 'out']) {
-    if (!out[key]) throw new Error(`--${key} is required`);
-  }
-  return out;
-}
+const { check, finish, parseArgs, playwrightChromium } = require('../checks.js');
 
-const args = parseArgs(process.argv);
-const { chromium } = createRequire(path.join(path.resolve(args.modules), 'package.json'))('playwright-core');
+const args = parseArgs(process.argv, ['pitchwire', 'modules', 'chromium', 'out']);
+const chromium = playwrightChromium(args.modules);
 
-let passed = 0;
-let failed = 0;
-function check(name, ok, detail = '') {
-  if (ok) passed += 1;
-  else failed += 1;
-  console.log(`${ok ? 'PASS' : 'FAIL'}: ${name}${detail ? ` -- ${detail}` : ''}`);
-  return ok;
-}
 
 // ---- 1. the session, by construction -----------------------------------------------------------------------
 
@@ -343,6 +324,5 @@ main()
     check('test ran to the end', false, error && error.stack ? error.stack : String(error));
   })
   .finally(() => {
-    console.log(`${passed} passed, ${failed} failed`);
-    process.exitCode = failed === 0 && passed > 0 ? 0 : 1;
+    finish();
   });

@@ -17,13 +17,7 @@ const webDir = (() => {
 const P = require(path.join(webDir, 'pitch.js'));
 const { FrameStore } = require(path.join(webDir, 'contour.js'));
 
-let passed = 0;
-let failed = 0;
-function check(name, ok, detail = '') {
-  if (ok) passed += 1;
-  else failed += 1;
-  console.log(`${ok ? 'PASS' : 'FAIL'}: ${name}${detail ? ` -- ${detail}` : ''}`);
-}
+const { check, finish } = require('../checks.js');
 const near = (a, b, tol) => Math.abs(a - b) <= tol;
 
 // ---- pitch.js ------------------------------------------------------------------------------------------
@@ -113,5 +107,4 @@ check('counts with thin spaces: 78\u2009211', P.formatCount(78211.4) === '78\u20
   check('with a decimation of 4, steps of 4 are not gaps', decimated.segments(-1, 4).runs.length === 1);
 }
 
-console.log(`${passed} passed, ${failed} failed`);
-process.exitCode = failed === 0 && passed > 0 ? 0 : 1;
+finish();
